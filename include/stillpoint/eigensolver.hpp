@@ -1,0 +1,55 @@
+#pragma once
+// Lowest eigenpairs of the symmetric banded Kohn–Sham matrices.
+//
+// The matrices are H = T + diag(d), with T the (scaled) kinetic part whose sparsity never
+// changes during an SCF. Sparse path: shift-invert Lanczos (Spectra) with a sparse LDL^T
+// factorization below the spectrum, where H - sigma is positive definite; Sylvester inertia
+// of that factorization proves no low state was missed. Dense path (small grids): LAPACK
+// through Armadillo, the only place the library uses Armadillo.
+#include <Eigen/Dense>
+#include <Eigen/Sparse>
+#include <memory>
+
+namespace stillpoint {
+
+struct EigensolverOptions {
+  /// Use dense diagonalization when the matrix has at most this many rows.
+  int dense_below = 160;
+  /// Relative convergence tolerance of the Lanczos iteration (Spectra's tol).
+  double tolerance = 1e-13;
+  /// Maximum number of Lanczos restarts.
+  int max_restarts = 2000;
+};
+
+struct Eigenpairs {
+  Eigen::VectorXd values;   ///< ascending
+  Eigen::MatrixXd vectors;  ///< columns, orthonormal in the Euclidean inner product
+};
+
+/// Dense symmetric eigenpairs (all or the lowest `count`) by LAPACK via Armadillo.
+Eigenpairs dense_lowest_eigenpairs(const Eigen::MatrixXd& H, int count);
+
+/// Number of eigenvalues of the sparse symmetric matrix A below zero (Sylvester inertia of LDL^T).
+int count_negative_eigenvalues(const Eigen::SparseMatrix<double>& A);
+
+class LowestEigensolver {
+ public:
+  /// T must be symmetric positive semi-definite (both triangles stored).
+  LowestEigensolver(Eigen::SparseMatrix<double> T, EigensolverOptions options = {});
+  ~LowestEigensolver();
+  LowestEigensolver(LowestEigensolver&&) noexcept;
+  LowestEigensolver& operator=(LowestEigensolver&&) noexcept;
+
+  /// Lowest `count` eigenpairs of T + diag(diagonal). `lower_bound_hint` is a guess for a
+  /// number just below the lowest eigenvalue (NaN if unknown); a provable bound is used when
+  /// the guess turns out to be above the spectrum. Throws NumericalError on failure.
+  Eigenpairs solve(const Eigen::VectorXd& diagonal, int count, double lower_bound_hint) const;
+
+  int size() const;
+
+ private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
+
+}  // namespace stillpoint

@@ -1,0 +1,32 @@
+#pragma once
+// The discrete exchange-correlation energy of nodal spin densities on a mesh, and its exact
+// gradient.
+//
+//   E_xc(n) = sum_e sum_q w_eq e(n_k(e,q), sigma_eq),   sigma_eq from (D_e n)_q,
+//
+// where w_eq are element quadrature weights (times 4 pi r^2 radially) and D_e the element's
+// density derivative matrix. The potential is v_k = (dE_xc/dn_k) / W_k with W the density
+// weights, the weak-form GGA potential: the same quadrature as the energy, so that the
+// self-consistent energy is stationary and finite differences of E_xc reproduce v exactly.
+#include <Eigen/Dense>
+#include <vector>
+
+#include "stillpoint/mesh.hpp"
+#include "stillpoint/xc_functional.hpp"
+
+namespace stillpoint {
+
+struct XcOnMesh {
+  double energy = 0.0;                    ///< hartree
+  std::vector<Eigen::VectorXd> potential;  ///< per spin channel, hartree, at every node (0 where W = 0)
+};
+
+/// `density` holds one nodal vector per spin channel (1: total density, 2: up and down).
+XcOnMesh evaluate_xc(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& density,
+                     double density_threshold);
+
+/// Energy only (cheaper bookkeeping, same numbers as evaluate_xc().energy).
+double xc_energy(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& density,
+                 double density_threshold);
+
+}  // namespace stillpoint

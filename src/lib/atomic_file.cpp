@@ -1,0 +1,39 @@
+#include "stillpoint/atomic_file.hpp"
+
+#include <unistd.h>
+
+#include <atomic>
+#include <filesystem>
+#include <fstream>
+
+#include "stillpoint/errors.hpp"
+
+namespace stillpoint {
+
+void write_file_atomically(const std::string& path, const std::string& content) {
+  namespace fs = std::filesystem;
+  static std::atomic<int> counter{0};
+  const fs::path target(path);
+  std::error_code ec;
+  if (target.has_parent_path()) fs::create_directories(target.parent_path(), ec);
+  const fs::path tmp = target.parent_path() / ("." + target.filename().string() + ".tmp." + std::to_string(::getpid()) +
+                                               "." + std::to_string(counter++));
+  {
+    std::ofstream out(tmp, std::ios::binary | std::ios::trunc);
+    if (!out) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot write output file (is the directory writable?)");
+    out << content;
+    out.flush();
+    if (!out) {
+      out.close();
+      fs::remove(tmp, ec);
+      throw InputError(SourceLocation{path, 0, 0, ""}, "writing the output file failed (disk full?)");
+    }
+  }
+  fs::rename(tmp, target, ec);
+  if (ec) {
+    fs::remove(tmp, ec);
+    throw InputError(SourceLocation{path, 0, 0, ""}, "cannot move the finished output into place: " + ec.message());
+  }
+}
+
+}  // namespace stillpoint

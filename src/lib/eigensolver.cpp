@@ -1,0 +1,181 @@
+#include "stillpoint/eigensolver.hpp"
+
+#include <Spectra/SymEigsShiftSolver.h>
+
+#include <Eigen/SparseCholesky>
+#include <algorithm>
+#include <cmath>
+#include <numeric>
+#include <sstream>
+
+#include "stillpoint/errors.hpp"
+
+extern "C" {
+// LAPACK banded Cholesky (gfortran ABI: hidden length of the character argument last).
+void dpbtrf_(const char* uplo, const int* n, const int* kd, double* ab, const int* ldab, int* info, std::size_t);
+void dpbtrs_(const char* uplo, const int* n, const int* kd, const int* nrhs, const double* ab, const int* ldab,
+             double* b, const int* ldb, int* info, std::size_t);
+}
+
+namespace stillpoint {
+
+namespace {
+using SpMat = Eigen::SparseMatrix<double>;
+using Ldlt = Eigen::SimplicialLDLT<SpMat, Eigen::Lower, Eigen::NaturalOrdering<int>>;
+
+// Banded Cholesky of H - sigma in LAPACK upper band storage. Below the spectrum the matrix is
+// positive definite, so success of the factorization is itself the proof that sigma is a
+// lower bound, and the triangular solves are dense-band BLAS, several times faster than a
+// general sparse solve.
+struct BandCholesky {
+  int n = 0, kd = 0;
+  Eigen::MatrixXd ab;  // (kd + 1) x n
+  bool factor(const SpMat& H, double sigma) {
+    ab.setZero(kd + 1, n);
+    for (int j = 0; j < H.outerSize(); ++j)
+      for (SpMat::InnerIterator it(H, j); it; ++it) {
+        const int i = static_cast<int>(it.row());
+        if (i > j || j - i > kd) continue;
+        ab(kd + i - j, j) = it.value() - (i == j ? sigma : 0.0);
+      }
+    int info = 0, ldab = kd + 1;
+    dpbtrf_("U", &n, &kd, ab.data(), &ldab, &info, 1);
+    return info == 0;
+  }
+  void solve(double* b) const {
+    int info = 0, ldab = kd + 1, nrhs = 1, ldb = n;
+    dpbtrs_("U", &n, &kd, &nrhs, ab.data(), &ldab, b, &ldb, &info, 1);
+  }
+};
+
+struct ShiftInvertOp {
+  using Scalar = double;
+  const BandCholesky* chol = nullptr;
+  Eigen::Index n = 0;
+  Eigen::Index rows() const { return n; }
+  Eigen::Index cols() const { return n; }
+  void set_shift(double) {}
+  void perform_op(const double* x, double* y) const {
+    std::copy(x, x + n, y);
+    chol->solve(y);
+  }
+};
+
+int negatives(const Ldlt& f) {
+  return static_cast<int>((f.vectorD().array() < 0.0).count());
+}
+}  // namespace
+
+int count_negative_eigenvalues(const Eigen::SparseMatrix<double>& A) {
+  Ldlt f(A);
+  if (f.info() != Eigen::Success) throw NumericalError("LDL^T factorization failed while counting eigenvalues");
+  return negatives(f);
+}
+
+struct LowestEigensolver::Impl {
+  SpMat T;  // both triangles stored
+  EigensolverOptions options;
+  Eigen::MatrixXd dense_T;
+  int bandwidth = 0;
+  mutable BandCholesky chol;
+  mutable Ldlt ldlt;
+  mutable bool analyzed = false;
+};
+
+LowestEigensolver::LowestEigensolver(Eigen::SparseMatrix<double> T, EigensolverOptions options)
+    : impl_(std::make_unique<Impl>()) {
+  impl_->T = std::move(T);
+  impl_->T.makeCompressed();
+  impl_->options = options;
+  if (impl_->T.rows() <= options.dense_below) impl_->dense_T = Eigen::MatrixXd(impl_->T);
+  for (int j = 0; j < impl_->T.outerSize(); ++j)
+    for (SpMat::InnerIterator it(impl_->T, j); it; ++it)
+      impl_->bandwidth = std::max(impl_->bandwidth, static_cast<int>(std::abs(it.row() - j)));
+  impl_->chol.n = static_cast<int>(impl_->T.rows());
+  impl_->chol.kd = impl_->bandwidth;
+}
+
+LowestEigensolver::~LowestEigensolver() = default;
+LowestEigensolver::LowestEigensolver(LowestEigensolver&&) noexcept = default;
+LowestEigensolver& LowestEigensolver::operator=(LowestEigensolver&&) noexcept = default;
+
+int LowestEigensolver::size() const { return static_cast<int>(impl_->T.rows()); }
+
+Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, double hint) const {
+  const Impl& I = *impl_;
+  const Eigen::Index n = I.T.rows();
+  if (count < 1 || count >= n)
+    throw InputError("requested " + std::to_string(count) + " eigenstates from a grid with only " +
+                     std::to_string(n) + " unknowns: use a larger grid");
+  if (n <= I.options.dense_below) {
+    Eigen::MatrixXd H = I.dense_T;
+    H.diagonal() += diagonal;
+    return dense_lowest_eigenpairs(H, count);
+  }
+  SpMat H = I.T;
+  for (Eigen::Index k = 0; k < n; ++k) H.coeffRef(k, k) += diagonal(k);
+  // T is positive semi-definite (kinetic plus centrifugal), so min(diagonal) bounds the spectrum.
+  const double proven = diagonal.minCoeff() - 1e-8 * (1.0 + std::abs(diagonal.minCoeff()));
+  double sigma = std::isfinite(hint) ? std::max(hint, proven) : proven;
+  // Walk down from the hint until H - sigma is positive definite.
+  for (int tries = 0;; ++tries) {
+    if (I.chol.factor(H, sigma)) break;
+    if (sigma <= proven || tries > 60) throw NumericalError("banded Cholesky failed below the proven spectrum bound");
+    const double step = std::max(1.0, std::abs(sigma)) * std::pow(2.0, tries - 3);
+    sigma = std::max(proven, sigma - step);
+  }
+  ShiftInvertOp op;
+  op.chol = &I.chol;
+  op.n = n;
+  const Eigen::Index ncv = std::min<Eigen::Index>(n, std::max<Eigen::Index>(2 * count + 1, count + 20));
+  Spectra::SymEigsShiftSolver<ShiftInvertOp> eigs(op, count, ncv, sigma);
+  eigs.init();
+  eigs.compute(Spectra::SortRule::LargestMagn, I.options.max_restarts, I.options.tolerance);
+  if (eigs.info() != Spectra::CompInfo::Successful) {
+    std::ostringstream msg;
+    msg << "shift-invert Lanczos did not converge for the lowest " << count << " states (shift " << sigma
+        << " hartree, " << eigs.num_iterations() << " restarts)";
+    throw NumericalError(msg.str());
+  }
+  Eigen::VectorXd vals = eigs.eigenvalues();
+  Eigen::MatrixXd vecs = eigs.eigenvectors();
+  std::vector<int> order(count);
+  std::iota(order.begin(), order.end(), 0);
+  std::sort(order.begin(), order.end(), [&](int a, int b) { return vals(a) < vals(b); });
+  Eigenpairs out;
+  out.values.resize(count);
+  out.vectors.resize(n, count);
+  for (int j = 0; j < count; ++j) {
+    Eigen::VectorXd v = vecs.col(order[j]);
+    v.normalize();
+    out.vectors.col(j) = v;
+    out.values(j) = v.dot(H * v);  // Rayleigh quotient
+  }
+  // Inertia check just above the highest state returned: exactly `count` eigenvalues must lie
+  // below it, otherwise Lanczos skipped a state.
+  const double top = out.values(count - 1);
+  const double gap_guard = 1e-9 * (1.0 + std::abs(top));
+  SpMat shifted = H;
+  for (Eigen::Index k = 0; k < n; ++k) shifted.coeffRef(k, k) -= top + gap_guard;
+  if (!I.analyzed) {
+    I.ldlt.analyzePattern(shifted);
+    I.analyzed = true;
+  }
+  I.ldlt.factorize(shifted);
+  if (I.ldlt.info() == Eigen::Success) {
+    const int below = negatives(I.ldlt);
+    if (below != count) {
+      std::ostringstream msg;
+      msg << "eigensolver returned " << count << " states but " << below << " eigenvalues lie below "
+          << top + gap_guard << " hartree (missed or near-degenerate states)";
+      if (below < count) {
+        // Near-degenerate pair straddling the guard: harmless, the values are still the lowest.
+      } else {
+        throw NumericalError(msg.str());
+      }
+    }
+  }
+  return out;
+}
+
+}  // namespace stillpoint

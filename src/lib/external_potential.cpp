@@ -1,0 +1,82 @@
+#include "stillpoint/external_potential.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <fstream>
+#include <sstream>
+
+#include "stillpoint/errors.hpp"
+
+namespace stillpoint {
+
+namespace {
+// Natural cubic spline second derivatives, computed on demand: tables are small.
+std::vector<double> spline_second(const std::vector<double>& x, const std::vector<double>& y) {
+  const std::size_t n = x.size();
+  std::vector<double> m(n, 0.0), u(n, 0.0);
+  for (std::size_t i = 1; i + 1 < n; ++i) {
+    const double sig = (x[i] - x[i - 1]) / (x[i + 1] - x[i - 1]);
+    const double p = sig * m[i - 1] + 2.0;
+    m[i] = (sig - 1.0) / p;
+    const double d = (y[i + 1] - y[i]) / (x[i + 1] - x[i]) - (y[i] - y[i - 1]) / (x[i] - x[i - 1]);
+    u[i] = (6.0 * d / (x[i + 1] - x[i - 1]) - sig * u[i - 1]) / p;
+  }
+  for (std::size_t k = n - 1; k-- > 0;) m[k] = m[k] * m[k + 1] + u[k];
+  m[n - 1] = 0.0;
+  return m;
+}
+}  // namespace
+
+double ExternalTerm::value(double x) const {
+  switch (kind) {
+    case Kind::Harmonic:
+      return 0.5 * omega * omega * (x - center) * (x - center);
+    case Kind::Gaussian:
+      return -depth * std::exp(-(x - center) * (x - center) / (2.0 * width * width));
+    case Kind::Table: {
+      // Outside the table the end values are held: a table must cover the region that matters.
+      if (x <= table_x.front()) return table_v.front();
+      if (x >= table_x.back()) return table_v.back();
+      const std::vector<double>& m = table_m;
+      const auto it = std::upper_bound(table_x.begin(), table_x.end(), x);
+      const std::size_t hi = static_cast<std::size_t>(it - table_x.begin()), lo = hi - 1;
+      const double h = table_x[hi] - table_x[lo];
+      const double a = (table_x[hi] - x) / h, b = (x - table_x[lo]) / h;
+      return a * table_v[lo] + b * table_v[hi] + ((a * a * a - a) * m[lo] + (b * b * b - b) * m[hi]) * h * h / 6.0;
+    }
+  }
+  return 0.0;
+}
+
+ExternalTerm read_potential_table(const std::string& path) {
+  std::ifstream in(path);
+  SourceLocation where{path, 0, 0, ""};
+  if (!in) throw InputError(where, "cannot open potential table");
+  ExternalTerm t;
+  t.kind = ExternalTerm::Kind::Table;
+  t.source = path;
+  std::string line;
+  int lineno = 0;
+  while (std::getline(in, line)) {
+    ++lineno;
+    where.line = lineno;
+    const auto first = line.find_first_not_of(" \t\r");
+    if (first == std::string::npos || line[first] == '#') continue;
+    std::replace(line.begin(), line.end(), ',', ' ');
+    std::istringstream ss(line);
+    double x, v;
+    if (!(ss >> x >> v)) {
+      if (t.table_x.empty() && std::isalpha(static_cast<unsigned char>(line[first]))) continue;  // header
+      throw InputError(where, "expected two numbers (x in bohr, v in hartree)");
+    }
+    if (!std::isfinite(x) || !std::isfinite(v)) throw InputError(where, "non-finite value");
+    if (!t.table_x.empty() && x <= t.table_x.back()) throw InputError(where, "x values must be strictly ascending");
+    t.table_x.push_back(x);
+    t.table_v.push_back(v);
+  }
+  if (t.table_x.size() < 2) throw InputError(SourceLocation{path, 0, 0, ""}, "a potential table needs at least two rows");
+  t.table_m = spline_second(t.table_x, t.table_v);
+  return t;
+}
+
+}  // namespace stillpoint

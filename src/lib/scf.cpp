@@ -1,0 +1,200 @@
+#include "stillpoint/scf.hpp"
+
+#include <cmath>
+#include <cstdio>
+#include <sstream>
+
+#include "stillpoint/errors.hpp"
+#include "stillpoint/xc_on_mesh.hpp"
+
+namespace stillpoint {
+
+Eigen::VectorXd KsSolution::total_density() const {
+  Eigen::VectorXd n = density[0];
+  for (std::size_t s = 1; s < density.size(); ++s) n += density[s];
+  return n;
+}
+
+MapEvaluation evaluate_ks_map(const KsProblem& P, const std::vector<Eigen::VectorXd>& v_in, std::vector<double>& hints) {
+  MapEvaluation r;
+  r.states = P.solve_channels(v_in, hints);
+  r.density = P.density(r.states);
+  Eigen::VectorXd n_tot = r.density[0];
+  for (std::size_t s = 1; s < r.density.size(); ++s) n_tot += r.density[s];
+  r.v_h = P.hartree_potential(n_tot);
+  const XcOnMesh xc = evaluate_xc(P.mesh(), P.xc(), r.density, P.density_threshold());
+  r.v_xc = xc.potential;
+  const Eigen::VectorXd& W = P.mesh().density_weight();
+  EnergyParts& E = r.energy;
+  for (std::size_t c = 0; c < P.channels().size(); ++c) {
+    const Channel& ch = P.channels()[c];
+    for (std::size_t i = 0; i < ch.occupations.size(); ++i) E.band += ch.occupations[i] * r.states[c].energies(i);
+  }
+  double pot = 0.0;
+  for (int s = 0; s < P.nspin(); ++s) pot += W.dot(v_in[s].cwiseProduct(r.density[s]));
+  E.kinetic = E.band - pot;
+  E.external = W.dot(P.external_potential().cwiseProduct(n_tot));
+  E.hartree = P.hartree() ? P.hartree()->energy(n_tot, r.v_h) : 0.0;
+  E.xc = xc.energy;
+  E.nuclear_repulsion = P.nuclear_repulsion();
+  E.total = E.kinetic + E.external + E.hartree + E.xc + E.nuclear_repulsion;
+  r.v_out.resize(P.nspin());
+  for (int s = 0; s < P.nspin(); ++s) r.v_out[s] = P.external_potential() + r.v_h + r.v_xc[s];
+  return r;
+}
+
+namespace {
+
+Eigen::VectorXd stack(const std::vector<Eigen::VectorXd>& v) {
+  Eigen::Index n = 0;
+  for (const auto& x : v) n += x.size();
+  Eigen::VectorXd out(n);
+  Eigen::Index o = 0;
+  for (const auto& x : v) {
+    out.segment(o, x.size()) = x;
+    o += x.size();
+  }
+  return out;
+}
+
+std::vector<Eigen::VectorXd> unstack(const Eigen::VectorXd& x, int nspin) {
+  const Eigen::Index n = x.size() / nspin;
+  std::vector<Eigen::VectorXd> out(nspin);
+  for (int s = 0; s < nspin; ++s) out[s] = x.segment(s * n, n);
+  return out;
+}
+
+std::string format_step(const ScfStep& s) {
+  char buf[160];
+  std::snprintf(buf, sizeof buf, "  iter %3d  E = %.12f Ha  residual = %.3e Ha  max d(eps) = %.3e Ha", s.iteration,
+                s.energy, s.residual, s.eigenvalue_change);
+  return buf;
+}
+
+}  // namespace
+
+KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution* start) {
+  const int ns = P.nspin();
+  const Eigen::VectorXd& W = P.mesh().density_weight();
+  std::vector<Eigen::VectorXd> v_in = start ? start->v_s : P.initial_potential();
+  std::vector<double> hints = start ? start->hints : std::vector<double>{};
+  std::vector<Eigen::VectorXd> hist_v, hist_r;
+  std::vector<ScfStep> history;
+  std::vector<Eigen::VectorXd> prev_eps;
+  double prev_energy = std::numeric_limits<double>::quiet_NaN();
+  double best_residual = std::numeric_limits<double>::infinity();
+  for (int it = 1; it <= opt.max_iterations; ++it) {
+    MapEvaluation m = evaluate_ks_map(P, v_in, hints);
+    Eigen::VectorXd n_tot = m.density[0];
+    for (int s = 1; s < ns; ++s) n_tot += m.density[s];
+    const double N = W.dot(n_tot);
+    // Density-weighted metric: what the electrons feel. The floor keeps the far tail, where
+    // only unoccupied states live, from being ignored by the extrapolation.
+    const Eigen::VectorXd dens_metric = W.cwiseProduct(n_tot) / N;
+    const Eigen::VectorXd metric_one = dens_metric.array() + 1e-8 * W.array() / W.sum();
+    Eigen::VectorXd metric(metric_one.size() * ns);
+    for (int s = 0; s < ns; ++s) metric.segment(s * metric_one.size(), metric_one.size()) = metric_one;
+    const Eigen::VectorXd vin = stack(v_in);
+    const Eigen::VectorXd res = stack(m.v_out) - vin;
+    double r2 = 0.0;
+    for (int s = 0; s < ns; ++s) {
+      const auto seg = res.segment(s * n_tot.size(), n_tot.size());
+      r2 += dens_metric.dot(seg.cwiseProduct(seg));
+    }
+    ScfStep step;
+    step.iteration = it;
+    step.energy = m.energy.total;
+    step.residual = std::sqrt(r2);
+    step.eigenvalue_change = 0.0;
+    if (!prev_eps.empty()) {
+      for (std::size_t c = 0; c < m.states.size(); ++c)
+        step.eigenvalue_change =
+            std::max(step.eigenvalue_change, (m.states[c].energies - prev_eps[c]).cwiseAbs().maxCoeff());
+    } else {
+      step.eigenvalue_change = std::numeric_limits<double>::infinity();
+    }
+    if (!std::isfinite(step.energy) || !std::isfinite(step.residual)) {
+      std::vector<std::string> lines;
+      for (const auto& h : history) lines.push_back(format_step(h));
+      throw NumericalError("SCF produced a non-finite energy or residual at iteration " + std::to_string(it), lines);
+    }
+    history.push_back(step);
+    if (opt.verbose) std::fprintf(stderr, "%s\n", format_step(step).c_str());
+    const bool converged = step.residual < opt.potential_tolerance &&
+                           std::abs(step.energy - prev_energy) < opt.energy_tolerance &&
+                           step.eigenvalue_change < opt.eigenvalue_tolerance;
+    prev_eps.clear();
+    for (const auto& st : m.states) prev_eps.push_back(st.energies);
+    prev_energy = step.energy;
+    if (converged) {
+      KsSolution sol;
+      sol.states = std::move(m.states);
+      sol.density = std::move(m.density);
+      sol.v_s = v_in;
+      sol.v_xc = std::move(m.v_xc);
+      sol.v_h = std::move(m.v_h);
+      sol.v_ext = P.external_potential();
+      sol.energy = m.energy;
+      sol.history = std::move(history);
+      sol.hints = hints;
+      sol.iterations = it;
+      for (std::size_t c = 0; c < P.channels().size(); ++c) {
+        const Channel& ch = P.channels()[c];
+        for (int i = 0; i < ch.states; ++i) {
+          Level lv;
+          lv.label = ch.labels[i];
+          lv.channel = static_cast<int>(c);
+          lv.index = i;
+          lv.spin = ch.spin;
+          lv.l = ch.l;
+          lv.energy = sol.states[c].energies(i);
+          lv.occupation = i < static_cast<int>(ch.occupations.size()) ? ch.occupations[i] : 0.0;
+          sol.levels.push_back(lv);
+        }
+      }
+      return sol;
+    }
+    // Pulay / DIIS extrapolation with a restart safeguard when the residual blows up.
+    if (step.residual > 10.0 * best_residual && hist_v.size() > 1) {
+      hist_v.clear();
+      hist_r.clear();
+    }
+    best_residual = std::min(best_residual, step.residual);
+    hist_v.push_back(vin);
+    hist_r.push_back(res);
+    if (static_cast<int>(hist_v.size()) > std::max(1, opt.history)) {
+      hist_v.erase(hist_v.begin());
+      hist_r.erase(hist_r.begin());
+    }
+    const int k = static_cast<int>(hist_v.size());
+    Eigen::VectorXd next;
+    if (k == 1) {
+      next = vin + opt.mixing * res;
+    } else {
+      Eigen::MatrixXd A = Eigen::MatrixXd::Zero(k + 1, k + 1);
+      Eigen::VectorXd rhs = Eigen::VectorXd::Zero(k + 1);
+      for (int i = 0; i < k; ++i)
+        for (int j = 0; j <= i; ++j) A(i, j) = A(j, i) = hist_r[i].dot(metric.cwiseProduct(hist_r[j]));
+      const double scale = A.topLeftCorner(k, k).diagonal().maxCoeff();
+      A.topLeftCorner(k, k) /= scale;
+      A.topLeftCorner(k, k).diagonal().array() += 1e-12;
+      A.block(0, k, k, 1).setOnes();
+      A.block(k, 0, 1, k).setOnes();
+      rhs(k) = 1.0;
+      const Eigen::VectorXd c = A.colPivHouseholderQr().solve(rhs);
+      next = Eigen::VectorXd::Zero(vin.size());
+      for (int i = 0; i < k; ++i) next += c(i) * (hist_v[i] + opt.mixing * hist_r[i]);
+      if (!next.allFinite()) next = vin + opt.mixing * res;
+    }
+    v_in = unstack(next, ns);
+  }
+  std::vector<std::string> lines;
+  for (const auto& h : history) lines.push_back(format_step(h));
+  std::ostringstream msg;
+  msg << "SCF did not converge in " << opt.max_iterations << " iterations (last residual "
+      << (history.empty() ? 0.0 : history.back().residual) << " Ha, tolerance " << opt.potential_tolerance
+      << "); try more iterations, a smaller mixing or a different grid";
+  throw NumericalError(msg.str(), lines);
+}
+
+}  // namespace stillpoint
