@@ -1,2 +1,157 @@
+// stillpoint benchmarks. Run: build/bench/stillpoint_bench
+// Google Benchmark cases for the forward engine, then ratio measurements printed as text
+// (ratios from one run are meaningful on noisy machines; absolute times are not).
 #include <benchmark/benchmark.h>
-BENCHMARK_MAIN();
+
+#include <chrono>
+#include <cmath>
+#include <cstdio>
+#include <vector>
+
+#include "stillpoint/eigensolver.hpp"
+#include "stillpoint/grid_presets.hpp"
+#include "stillpoint/kinetic.hpp"
+#include "stillpoint/reference_check.hpp"
+#include "stillpoint/scf.hpp"
+
+extern "C" void openblas_set_num_threads(int);
+
+namespace sp = stillpoint;
+
+namespace {
+
+// 1D chain of `atoms` soft-Coulomb hydrogens, spacing 2 bohr, 1D LDA, with `nodes` grid nodes.
+sp::SystemSpec chain(int atoms, int nodes) {
+  sp::SystemSpec s;
+  s.name = "chain";
+  s.geometry = sp::Geometry::Line;
+  s.xc = {"lda_x_1d_soft", "lda_c_1d_csc"};
+  for (int i = 0; i < atoms; ++i) s.line.nuclei.push_back({1.0, 2.0 * (i - 0.5 * (atoms - 1)), 1.0});
+  s.grid = sp::grid_preset(sp::Geometry::Line, "default");
+  s.grid.half_width = 30.0;
+  s.grid.element_size = 2.0 * s.grid.half_width * s.grid.degree / (nodes - 1);
+  return s;
+}
+
+double seconds_since(std::chrono::steady_clock::time_point t0) {
+  return std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+}
+
+void BM_ReferenceAtoms(benchmark::State& state) {
+  // All shipped reference atoms (Mg, Mg+; LDA and LSD) to the default SCF tolerances.
+  const auto rows = sp::read_reference_table(STILLPOINT_BENCH_REFERENCE);
+  sp::CheckOptions opt;
+  for (auto _ : state) {
+    auto rep = sp::run_reference_check(rows, opt);
+    benchmark::DoNotOptimize(rep.max_abs_deviation);
+  }
+}
+BENCHMARK(BM_ReferenceAtoms)->Unit(benchmark::kMillisecond);
+
+void BM_Line2000Nodes10Electrons(benchmark::State& state) {
+  const sp::KsProblem P(chain(10, 2001));
+  int it = 0;
+  for (auto _ : state) {
+    auto sol = sp::solve_scf(P);
+    it = sol.iterations;
+  }
+  state.counters["scf_iterations"] = it;
+  state.counters["nodes"] = P.mesh().num_nodes();
+}
+BENCHMARK(BM_Line2000Nodes10Electrons)->Unit(benchmark::kMillisecond);
+
+void BM_LineMapIteration(benchmark::State& state) {
+  const sp::KsProblem P(chain(10, static_cast<int>(state.range(0)) + 1));
+  const sp::KsSolution sol = sp::solve_scf(P);
+  std::vector<sp::EigenWarmStart> warm = sol.warm;
+  for (auto _ : state) {
+    auto m = sp::evaluate_ks_map(P, sol.v_s, warm);
+    benchmark::DoNotOptimize(m.energy.total);
+  }
+  state.SetComplexityN(state.range(0));
+}
+BENCHMARK(BM_LineMapIteration)->RangeMultiplier(2)->Range(1000, 16000)->Unit(benchmark::kMillisecond)->Complexity();
+
+// Per-iteration cost against grid size: least-squares slope of log(time) on log(N).
+void scaling_report() {
+  std::vector<double> lx, ly;
+  std::printf("\nPer-SCF-iteration cost of a 10-electron 1D chain (one warm Kohn-Sham map evaluation):\n");
+  for (int n : {1000, 2000, 4000, 8000, 16000}) {
+    const sp::KsProblem P(chain(10, n + 1));
+    const sp::KsSolution sol = sp::solve_scf(P);
+    std::vector<sp::EigenWarmStart> warm = sol.warm;
+    int reps = 0;
+    const auto t0 = std::chrono::steady_clock::now();
+    while (seconds_since(t0) < 0.5 || reps < 3) {
+      auto m = sp::evaluate_ks_map(P, sol.v_s, warm);
+      benchmark::DoNotOptimize(m.energy.total);
+      ++reps;
+    }
+    const double t = seconds_since(t0) / reps;
+    std::printf("  N = %6d nodes: %8.3f ms per iteration (%d SCF iterations to converge)\n", P.mesh().num_nodes(),
+                1e3 * t, sol.iterations);
+    lx.push_back(std::log(n));
+    ly.push_back(std::log(t));
+  }
+  double mx = 0, my = 0;
+  for (std::size_t i = 0; i < lx.size(); ++i) mx += lx[i], my += ly[i];
+  mx /= lx.size();
+  my /= ly.size();
+  double sxy = 0, sxx = 0;
+  for (std::size_t i = 0; i < lx.size(); ++i) sxy += (lx[i] - mx) * (ly[i] - my), sxx += (lx[i] - mx) * (lx[i] - mx);
+  std::printf("  fitted slope d log(time) / d log(N) = %.3f\n", sxy / sxx);
+}
+
+// The eigensolver used against dense diagonalization of the same matrix.
+void eigensolver_report() {
+  const sp::KsProblem P(chain(10, 2001));
+  const sp::KsSolution sol = sp::solve_scf(P);
+  const sp::Mesh& m = P.mesh();
+  const Eigen::SparseMatrix<double> T = sp::scaled_kinetic(m, 0);
+  const Eigen::VectorXd diag = sol.v_s[0].segment(1, m.num_unknowns());
+  const int count = 7;
+  sp::LowestEigensolver solver(T);
+  auto time_it = [](auto&& f) {
+    int reps = 0;
+    const auto t0 = std::chrono::steady_clock::now();
+    while (seconds_since(t0) < 0.3 || reps < 2) {
+      f();
+      ++reps;
+    }
+    return seconds_since(t0) / reps;
+  };
+  sp::Eigenpairs cold, warm_result, dense;
+  const double t_cold = time_it([&] {
+    sp::EigenWarmStart w;
+    w.lower_bound = diag.minCoeff();
+    cold = solver.solve(diag, count, w);
+  });
+  sp::EigenWarmStart w0;
+  solver.solve(diag, count, w0);
+  const double t_warm = time_it([&] {
+    sp::EigenWarmStart w = w0;
+    warm_result = solver.solve(diag, count, w);
+  });
+  Eigen::MatrixXd H = Eigen::MatrixXd(T);
+  H.diagonal() += diag;
+  const double t_dense = time_it([&] { dense = sp::dense_lowest_eigenpairs(H, count); });
+  std::printf("\nLowest %d states of a %d-row 1D Kohn-Sham matrix (band width %d):\n", count, static_cast<int>(diag.size()),
+              m.degree());
+  std::printf("  dense LAPACK (Armadillo eig_sym): %9.3f ms\n", 1e3 * t_dense);
+  std::printf("  shift-invert Lanczos, cold:       %9.3f ms   dense / cold = %.1f\n", 1e3 * t_cold, t_dense / t_cold);
+  std::printf("  inverse iteration, warm (SCF):    %9.3f ms   dense / warm = %.1f\n", 1e3 * t_warm, t_dense / t_warm);
+  std::printf("  max |eigenvalue difference| sparse vs dense: %.2e Ha\n",
+              (cold.values - dense.values).cwiseAbs().maxCoeff());
+}
+
+}  // namespace
+
+int main(int argc, char** argv) {
+  openblas_set_num_threads(1);
+  benchmark::Initialize(&argc, argv);
+  benchmark::RunSpecifiedBenchmarks();
+  benchmark::Shutdown();
+  scaling_report();
+  eigensolver_report();
+  return 0;
+}

@@ -8,6 +8,7 @@
 // through Armadillo, the only place the library uses Armadillo.
 #include <Eigen/Dense>
 #include <Eigen/Sparse>
+#include <limits>
 #include <memory>
 
 namespace stillpoint {
@@ -32,6 +33,14 @@ Eigenpairs dense_lowest_eigenpairs(const Eigen::MatrixXd& H, int count);
 /// Number of eigenvalues of the sparse symmetric matrix A below zero (Sylvester inertia of LDL^T).
 int count_negative_eigenvalues(const Eigen::SparseMatrix<double>& A);
 
+/// What one solve leaves for the next: a proven lower bound of the spectrum and the previous
+/// eigenpairs, which let the next solve in an SCF refine states by a few inverse iterations
+/// instead of a full Lanczos run.
+struct EigenWarmStart {
+  double lower_bound = std::numeric_limits<double>::quiet_NaN();
+  Eigenpairs previous;
+};
+
 class LowestEigensolver {
  public:
   /// T must be symmetric positive semi-definite (both triangles stored).
@@ -40,10 +49,13 @@ class LowestEigensolver {
   LowestEigensolver(LowestEigensolver&&) noexcept;
   LowestEigensolver& operator=(LowestEigensolver&&) noexcept;
 
-  /// Lowest `count` eigenpairs of T + diag(diagonal). `lower_bound_hint` is a guess for a
+  /// Lowest `count` eigenpairs of T + diag(diagonal). `warm.lower_bound` is a guess for a
   /// number just below the lowest eigenvalue (NaN if unknown); a provable bound is used when
-  /// the guess turns out to be above the spectrum. Throws NumericalError on failure.
-  Eigenpairs solve(const Eigen::VectorXd& diagonal, int count, double lower_bound_hint) const;
+  /// the guess turns out to be above the spectrum. `warm` is updated for the next call.
+  /// Whatever path is taken, the result is verified by Sylvester inertia: nothing lies below
+  /// the lowest value and exactly `count` eigenvalues lie at or below the highest.
+  /// Throws NumericalError on failure.
+  Eigenpairs solve(const Eigen::VectorXd& diagonal, int count, EigenWarmStart& warm) const;
 
   int size() const;
 

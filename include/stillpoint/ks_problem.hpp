@@ -59,9 +59,9 @@ class KsProblem {
   double nuclear_repulsion() const { return e_nn_; }
   double electron_count() const { return electrons_; }
 
-  /// Solves every channel in the potentials v_s (one nodal vector per spin). `hints` holds a
-  /// lower-bound guess of each channel's lowest eigenvalue (NaN if none) and is updated.
-  std::vector<ChannelStates> solve_channels(const std::vector<Eigen::VectorXd>& v_s, std::vector<double>& hints) const;
+  /// Solves every channel in the potentials v_s (one nodal vector per spin). `warm` holds
+  /// each channel's eigensolver warm start (empty on the first call) and is updated.
+  std::vector<ChannelStates> solve_channels(const std::vector<Eigen::VectorXd>& v_s, std::vector<EigenWarmStart>& warm) const;
   /// Spin densities from channel states with the fixed occupations.
   std::vector<Eigen::VectorXd> density(const std::vector<ChannelStates>& states) const;
   /// v_H[n] (zero when non-interacting).

@@ -62,7 +62,7 @@ struct KsSolution {
   EnergyParts energy;
   std::vector<Level> levels;  ///< every computed state, channel by channel
   std::vector<ScfStep> history;
-  std::vector<double> hints;  ///< eigensolver shifts, for warm starts
+  std::vector<EigenWarmStart> warm;  ///< eigensolver state per channel, for warm starts
   int iterations = 0;
 
   Eigen::VectorXd total_density() const;
@@ -82,6 +82,6 @@ struct MapEvaluation {
   EnergyParts energy;
 };
 MapEvaluation evaluate_ks_map(const KsProblem& problem, const std::vector<Eigen::VectorXd>& v_in,
-                              std::vector<double>& hints);
+                              std::vector<EigenWarmStart>& warm);
 
 }  // namespace stillpoint

@@ -15,6 +15,9 @@
 
 namespace sp = stillpoint;
 
+// OpenBLAS's own threads only add contention for the small banded problems solved here.
+extern "C" void openblas_set_num_threads(int);
+
 namespace {
 
 int run_solve(const std::string& file, const std::string& out_dir, bool verbose) {
@@ -54,6 +57,7 @@ int run_check(const std::vector<std::string>& tables, double tolerance, const st
 }  // namespace
 
 int main(int argc, char** argv) {
+  openblas_set_num_threads(1);
   CLI::App app{"stillpoint: Kohn-Sham solutions, exact gradients and fits for density-functional development.\n"
                "All quantities in hartree atomic units (energies in hartree, lengths in bohr)."};
   app.require_subcommand(1);

@@ -383,7 +383,9 @@ std::string format_with_core(const std::vector<Subshell>& sorted) {
                       [&](ShellId c) { return c.n == s.n && c.l == s.l; });
       if (!in_core) rest.push_back(s);
     }
-    return "[" + std::string(core->name) + "] " + format_configuration(rest);
+    std::string out("[");  // append, not operator+: GCC 12 warns falsely (-Wrestrict)
+    out.append(core->name).append("] ").append(format_configuration(rest));
+    return out;
   }
   return format_configuration(sorted);
 }

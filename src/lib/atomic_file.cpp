@@ -16,8 +16,10 @@ void write_file_atomically(const std::string& path, const std::string& content) 
   const fs::path target(path);
   std::error_code ec;
   if (target.has_parent_path()) fs::create_directories(target.parent_path(), ec);
-  const fs::path tmp = target.parent_path() / ("." + target.filename().string() + ".tmp." + std::to_string(::getpid()) +
-                                               "." + std::to_string(counter++));
+  std::string tmp_name(".");  // append, not operator+: GCC 12 warns falsely (-Wrestrict)
+  tmp_name.append(target.filename().string()).append(".tmp.").append(std::to_string(::getpid()));
+  tmp_name.append(".").append(std::to_string(counter++));
+  const fs::path tmp = target.parent_path() / tmp_name;
   {
     std::ofstream out(tmp, std::ios::binary | std::ios::trunc);
     if (!out) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot write output file (is the directory writable?)");

@@ -77,6 +77,7 @@ struct LowestEigensolver::Impl {
   EigensolverOptions options;
   Eigen::MatrixXd dense_T;
   int bandwidth = 0;
+  double norm_T = 0.0;  // max absolute row sum, sets the rounding floor of residuals
   mutable BandCholesky chol;
   mutable Ldlt ldlt;
   mutable bool analyzed = false;
@@ -91,6 +92,10 @@ LowestEigensolver::LowestEigensolver(Eigen::SparseMatrix<double> T, EigensolverO
   for (int j = 0; j < impl_->T.outerSize(); ++j)
     for (SpMat::InnerIterator it(impl_->T, j); it; ++it)
       impl_->bandwidth = std::max(impl_->bandwidth, static_cast<int>(std::abs(it.row() - j)));
+  Eigen::VectorXd rowsum = Eigen::VectorXd::Zero(impl_->T.rows());
+  for (int j = 0; j < impl_->T.outerSize(); ++j)
+    for (SpMat::InnerIterator it(impl_->T, j); it; ++it) rowsum(it.row()) += std::abs(it.value());
+  impl_->norm_T = rowsum.maxCoeff();
   impl_->chol.n = static_cast<int>(impl_->T.rows());
   impl_->chol.kd = impl_->bandwidth;
 }
@@ -101,7 +106,44 @@ LowestEigensolver& LowestEigensolver::operator=(LowestEigensolver&&) noexcept = 
 
 int LowestEigensolver::size() const { return static_cast<int>(impl_->T.rows()); }
 
-Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, double hint) const {
+namespace {
+
+extern "C" {
+void dgbtrf_(const int* m, const int* n, const int* kl, const int* ku, double* ab, const int* ldab, int* ipiv, int* info);
+void dgbtrs_(const char* trans, const int* n, const int* kl, const int* ku, const int* nrhs, const double* ab,
+             const int* ldab, const int* ipiv, double* b, const int* ldb, int* info, std::size_t);
+}
+
+// Banded LU with partial pivoting of H - mu: stable for the nearly singular shifts that make
+// inverse iteration converge in one or two steps.
+struct BandLu {
+  int n = 0, kd = 0;
+  Eigen::MatrixXd ab;
+  std::vector<int> ipiv;
+  bool factor(const SpMat& H, double mu) {
+    const int ld = 3 * kd + 1;
+    ab.setZero(ld, n);
+    ipiv.assign(n, 0);
+    for (int j = 0; j < H.outerSize(); ++j)
+      for (SpMat::InnerIterator it(H, j); it; ++it) {
+        const int i = static_cast<int>(it.row());
+        if (std::abs(i - j) > kd) continue;
+        ab(2 * kd + i - j, j) = it.value() - (i == j ? mu : 0.0);
+      }
+    int info = 0;
+    dgbtrf_(&n, &n, &kd, &kd, ab.data(), &ld, ipiv.data(), &info);
+    return info >= 0;  // info > 0: exactly singular pivot; solves still give a huge eigenvector-rich vector
+  }
+  void solve(Eigen::VectorXd& b) const {
+    const int ld = 3 * kd + 1, nrhs = 1;
+    int info = 0;
+    dgbtrs_("N", &n, &kd, &kd, &nrhs, ab.data(), &ld, ipiv.data(), b.data(), &n, &info, 1);
+  }
+};
+
+}  // namespace
+
+Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, EigenWarmStart& warm) const {
   const Impl& I = *impl_;
   const Eigen::Index n = I.T.rows();
   if (count < 1 || count >= n)
@@ -110,13 +152,80 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   if (n <= I.options.dense_below) {
     Eigen::MatrixXd H = I.dense_T;
     H.diagonal() += diagonal;
-    return dense_lowest_eigenpairs(H, count);
+    Eigenpairs ep = dense_lowest_eigenpairs(H, count);
+    warm.previous = ep;
+    return ep;
   }
   SpMat H = I.T;
   for (Eigen::Index k = 0; k < n; ++k) H.coeffRef(k, k) += diagonal(k);
   // T is positive semi-definite (kinetic plus centrifugal), so min(diagonal) bounds the spectrum.
   const double proven = diagonal.minCoeff() - 1e-8 * (1.0 + std::abs(diagonal.minCoeff()));
-  double sigma = std::isfinite(hint) ? std::max(hint, proven) : proven;
+
+  auto count_below = [&](double x) {
+    SpMat shifted = H;
+    for (Eigen::Index k = 0; k < n; ++k) shifted.coeffRef(k, k) -= x;
+    if (!I.analyzed) {
+      I.ldlt.analyzePattern(shifted);
+      I.analyzed = true;
+    }
+    I.ldlt.factorize(shifted);
+    if (I.ldlt.info() != Eigen::Success) return -1;
+    return negatives(I.ldlt);
+  };
+
+  // Warm path: refine the previous eigenpairs by shifted inverse iteration, then prove by
+  // inertia that they are the lowest `count`.
+  if (warm.previous.vectors.cols() == count && warm.previous.vectors.rows() == n) {
+    const double norm_H = I.norm_T + diagonal.cwiseAbs().maxCoeff();
+    BandLu lu;
+    lu.n = static_cast<int>(n);
+    lu.kd = I.bandwidth;
+    Eigenpairs out;
+    out.values.resize(count);
+    out.vectors.resize(n, count);
+    bool ok = true;
+    for (int i = 0; i < count && ok; ++i) {
+      double mu = warm.previous.values(i);
+      Eigen::VectorXd x = warm.previous.vectors.col(i);
+      double rho = x.dot(H * x);
+      bool conv = false;
+      for (int it = 0; it < 4; ++it) {
+        if (!lu.factor(H, mu)) break;
+        lu.solve(x);
+        for (int j = 0; j < i; ++j) x -= out.vectors.col(j).dot(x) * out.vectors.col(j);
+        x.normalize();
+        const Eigen::VectorXd Hx = H * x;
+        rho = x.dot(Hx);
+        const double res = (Hx - rho * x).norm();
+        if (!std::isfinite(res)) break;
+        if (res <= 1e-11 * (1.0 + std::abs(rho)) + 1e-14 * norm_H) {
+          conv = true;
+          break;
+        }
+        // Rayleigh-quotient shift, nudged off the exact value so the LU stays regular.
+        mu = rho + 1e-13 * (1.0 + std::abs(rho));
+      }
+      ok = conv;
+      out.values(i) = rho;
+      out.vectors.col(i) = x;
+    }
+    if (ok) {
+      for (int i = 1; i < count && ok; ++i) ok = out.values(i) >= out.values(i - 1) - 1e-12 * (1.0 + std::abs(out.values(i)));
+    }
+    if (ok) {
+      const double span = 1e-9 * (1.0 + std::abs(out.values(count - 1)));
+      const double low = out.values(0) - std::max(span, 1e-6 * (1.0 + std::abs(out.values(0))));
+      ok = I.chol.factor(H, low) && count_below(out.values(count - 1) + span) == count;
+      if (ok) {
+        warm.lower_bound = out.values(0) - 0.1 * std::abs(out.values(0)) - 0.05;
+        warm.previous = out;
+        return out;
+      }
+    }
+    // Fall through to the cold path: a state crossed or was lost.
+  }
+
+  double sigma = std::isfinite(warm.lower_bound) ? std::max(warm.lower_bound, proven) : proven;
   // Walk down from the hint until H - sigma is positive definite.
   for (int tries = 0;; ++tries) {
     if (I.chol.factor(H, sigma)) break;
@@ -151,30 +260,18 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
     out.vectors.col(j) = v;
     out.values(j) = v.dot(H * v);  // Rayleigh quotient
   }
-  // Inertia check just above the highest state returned: exactly `count` eigenvalues must lie
-  // below it, otherwise Lanczos skipped a state.
+  // Inertia check just above the highest state returned: more than `count` eigenvalues below
+  // it means Lanczos skipped a state.
   const double top = out.values(count - 1);
-  const double gap_guard = 1e-9 * (1.0 + std::abs(top));
-  SpMat shifted = H;
-  for (Eigen::Index k = 0; k < n; ++k) shifted.coeffRef(k, k) -= top + gap_guard;
-  if (!I.analyzed) {
-    I.ldlt.analyzePattern(shifted);
-    I.analyzed = true;
+  const int below = count_below(top + 1e-9 * (1.0 + std::abs(top)));
+  if (below > count) {
+    std::ostringstream msg;
+    msg << "eigensolver returned " << count << " states but " << below << " eigenvalues lie below " << top
+        << " hartree (a state was missed)";
+    throw NumericalError(msg.str());
   }
-  I.ldlt.factorize(shifted);
-  if (I.ldlt.info() == Eigen::Success) {
-    const int below = negatives(I.ldlt);
-    if (below != count) {
-      std::ostringstream msg;
-      msg << "eigensolver returned " << count << " states but " << below << " eigenvalues lie below "
-          << top + gap_guard << " hartree (missed or near-degenerate states)";
-      if (below < count) {
-        // Near-degenerate pair straddling the guard: harmless, the values are still the lowest.
-      } else {
-        throw NumericalError(msg.str());
-      }
-    }
-  }
+  warm.lower_bound = out.values(0) - 0.1 * std::abs(out.values(0)) - 0.05;
+  warm.previous = out;
   return out;
 }
 

@@ -193,21 +193,21 @@ KsProblem::~KsProblem() = default;
 KsProblem::KsProblem(KsProblem&&) noexcept = default;
 
 std::vector<ChannelStates> KsProblem::solve_channels(const std::vector<Eigen::VectorXd>& v_s,
-                                                     std::vector<double>& hints) const {
+                                                     std::vector<EigenWarmStart>& warm) const {
   const Mesh& m = *mesh_;
   const int nu = m.num_unknowns();
   const Eigen::VectorXd sqrt_w = m.w().array().sqrt();
   std::vector<ChannelStates> out(channels_.size());
-  hints.resize(channels_.size(), std::numeric_limits<double>::quiet_NaN());
+  warm.resize(channels_.size());
   for (std::size_t c = 0; c < channels_.size(); ++c) {
     const Channel& ch = channels_[c];
-    double hint = hints[c];
-    if (std::isnan(hint) && m.geometry() == Geometry::Radial) {
+    if (std::isnan(warm[c].lower_bound) && m.geometry() == Geometry::Radial) {
+      // Bare-Coulomb 1s level minus a margin for exchange-correlation attraction.
       const double Z = spec_.atom.Z;
-      hint = -0.5 * Z * Z - 2.0 * Z - 1.0;
+      warm[c].lower_bound = -0.5 * Z * Z - 2.0 * Z - 1.0;
     }
     const Eigen::VectorXd diag = v_s[ch.spin].segment(1, nu);
-    const Eigenpairs ep = solvers_[ch.l].solve(diag, ch.states, hint);
+    const Eigenpairs ep = solvers_[ch.l].solve(diag, ch.states, warm[c]);
     ChannelStates st;
     st.energies = ep.values;
     st.orbitals = Eigen::MatrixXd::Zero(m.num_nodes(), ch.states);
@@ -223,7 +223,6 @@ std::vector<ChannelStates> KsProblem::solve_channels(const std::vector<Eigen::Ve
         }
       st.orbitals.col(i).segment(1, nu) = u;
     }
-    hints[c] = ep.values(0) - 0.1 * std::abs(ep.values(0)) - 0.05;
     out[c] = std::move(st);
   }
   return out;

@@ -15,9 +15,9 @@ Eigen::VectorXd KsSolution::total_density() const {
   return n;
 }
 
-MapEvaluation evaluate_ks_map(const KsProblem& P, const std::vector<Eigen::VectorXd>& v_in, std::vector<double>& hints) {
+MapEvaluation evaluate_ks_map(const KsProblem& P, const std::vector<Eigen::VectorXd>& v_in, std::vector<EigenWarmStart>& warm) {
   MapEvaluation r;
-  r.states = P.solve_channels(v_in, hints);
+  r.states = P.solve_channels(v_in, warm);
   r.density = P.density(r.states);
   Eigen::VectorXd n_tot = r.density[0];
   for (std::size_t s = 1; s < r.density.size(); ++s) n_tot += r.density[s];
@@ -77,14 +77,14 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
   const int ns = P.nspin();
   const Eigen::VectorXd& W = P.mesh().density_weight();
   std::vector<Eigen::VectorXd> v_in = start ? start->v_s : P.initial_potential();
-  std::vector<double> hints = start ? start->hints : std::vector<double>{};
+  std::vector<EigenWarmStart> warm = start ? start->warm : std::vector<EigenWarmStart>{};
   std::vector<Eigen::VectorXd> hist_v, hist_r;
   std::vector<ScfStep> history;
   std::vector<Eigen::VectorXd> prev_eps;
   double prev_energy = std::numeric_limits<double>::quiet_NaN();
   double best_residual = std::numeric_limits<double>::infinity();
   for (int it = 1; it <= opt.max_iterations; ++it) {
-    MapEvaluation m = evaluate_ks_map(P, v_in, hints);
+    MapEvaluation m = evaluate_ks_map(P, v_in, warm);
     Eigen::VectorXd n_tot = m.density[0];
     for (int s = 1; s < ns; ++s) n_tot += m.density[s];
     const double N = W.dot(n_tot);
@@ -136,7 +136,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       sol.v_ext = P.external_potential();
       sol.energy = m.energy;
       sol.history = std::move(history);
-      sol.hints = hints;
+      sol.warm = warm;
       sol.iterations = it;
       for (std::size_t c = 0; c < P.channels().size(); ++c) {
         const Channel& ch = P.channels()[c];
