@@ -50,6 +50,11 @@ struct SystemSpec {
   std::vector<std::vector<double>> occupations;
   /// libxc names (or numbers), summed; empty = no exchange-correlation.
   std::vector<std::string> xc;
+  /// Weight of each xc term (empty: all 1); a differentiable parameter family.
+  std::vector<double> xc_weights;
+  /// Line only: extra potential at every mesh node (hartree), added to v_ext; empty = none.
+  /// A differentiable "grid potential" parameter family; its size must equal the node count.
+  std::vector<double> nodal_potential;
   MeshSpec grid;
   /// Name of the preset the grid came from ("custom" if set explicitly), for reports.
   std::string grid_name = "default";

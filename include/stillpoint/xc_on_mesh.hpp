@@ -30,3 +30,26 @@ double xc_energy(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eig
                  double density_threshold);
 
 }  // namespace stillpoint
+
+namespace stillpoint {
+
+/// The exchange-correlation kernel at a fixed density: the Hessian of the discrete E_xc,
+/// applied as K_xc dn = (1/W) (d^2 E_xc / dn^2) dn, in the same weak form as the potential.
+class XcKernel {
+ public:
+  XcKernel(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& density,
+           double density_threshold);
+  /// dv per spin at every node for the density change dn per spin.
+  std::vector<Eigen::VectorXd> apply(const std::vector<Eigen::VectorXd>& dn) const;
+
+ private:
+  const Mesh* mesh_;
+  int ns_ = 1;
+  bool gradient_ = false;
+  std::vector<int> node_, element_, local_;
+  std::vector<double> weight_;
+  // Per point, derivatives of e(n_s, g_s) with g_s = (D n_s)_q: ns x ns blocks, row-major.
+  std::vector<double> enn_, eng_, egg_;
+};
+
+}  // namespace stillpoint

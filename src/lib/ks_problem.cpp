@@ -47,6 +47,12 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
   xs.softening = spec.line.electron_softening;
   xs.density_threshold = density_threshold_;
   xc_ = make_functional(spec.xc, xs);
+  if (!spec.xc_weights.empty()) {
+    if (spec.xc_weights.size() != xc_.size())
+      throw InputError("xc_weights has " + std::to_string(spec.xc_weights.size()) + " entries for " +
+                       std::to_string(xc_.size()) + " functional terms");
+    for (std::size_t i = 0; i < xc_.size(); ++i) xc_.set_weight(i, xc_.weight(i) * spec.xc_weights[i]);
+  }
 
   if (spec.geometry == Geometry::Radial) {
     const int Z = spec.atom.Z;
@@ -121,6 +127,12 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
         v -= nuc.charge / std::sqrt((x - nuc.position) * (x - nuc.position) + nuc.softening * nuc.softening);
       for (const auto& t : ls.potentials) v += t.value(x);
       v_ext_(k) = v;
+    }
+    if (!spec.nodal_potential.empty()) {
+      if (static_cast<int>(spec.nodal_potential.size()) != mesh_->num_nodes())
+        throw InputError("nodal_potential has " + std::to_string(spec.nodal_potential.size()) + " values for " +
+                         std::to_string(mesh_->num_nodes()) + " grid nodes");
+      for (int k = 0; k < mesh_->num_nodes(); ++k) v_ext_(k) += spec.nodal_potential[k];
     }
     const double b = std::isnan(ls.nucleus_softening) ? ls.electron_softening : ls.nucleus_softening;
     for (std::size_t i = 0; i < ls.nuclei.size(); ++i)

@@ -120,3 +120,106 @@ double xc_energy(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eig
 }
 
 }  // namespace stillpoint
+
+namespace stillpoint {
+
+XcKernel::XcKernel(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& n, double thr)
+    : mesh_(&mesh), ns_(static_cast<int>(n.size())), gradient_(xc.needs_gradient()) {
+  if (xc.empty()) return;
+  XcPointData pts;
+  std::vector<double> grad;
+  const PointMap map = gather(mesh, n, gradient_, thr, pts, grad);
+  node_ = map.node;
+  element_ = map.element;
+  local_ = map.local;
+  weight_ = map.weight;
+  XcDerivatives d;
+  xc.evaluate(pts, 2, d);
+  const int ns = ns_;
+  const std::size_t np = pts.np;
+  enn_.assign(np * ns * ns, 0.0);
+  eng_.assign(np * ns * ns, 0.0);
+  egg_.assign(np * ns * ns, 0.0);
+  for (std::size_t i = 0; i < np; ++i) {
+    double* nn = &enn_[i * ns * ns];
+    if (ns == 1) {
+      nn[0] = d.v2rho2[i];
+    } else {
+      nn[0] = d.v2rho2[3 * i];
+      nn[1] = nn[2] = d.v2rho2[3 * i + 1];
+      nn[3] = d.v2rho2[3 * i + 2];
+    }
+    if (!gradient_) continue;
+    double* ng = &eng_[i * ns * ns];
+    double* gg = &egg_[i * ns * ns];
+    if (ns == 1) {
+      // sigma = g^2: e_g = 2 g e_s, e_gg = 2 e_s + 4 g^2 e_ss, e_ng = 2 g e_ns.
+      const double g = grad[i];
+      ng[0] = 2.0 * g * d.v2rhosigma[i];
+      gg[0] = 2.0 * d.vsigma[i] + 4.0 * g * g * d.v2sigma2[i];
+    } else {
+      // sigma_a(g) for a = (uu, ud, dd); J(a, s) = d sigma_a / d g_s.
+      const double gu = grad[2 * i], gd = grad[2 * i + 1];
+      const double J[3][2] = {{2.0 * gu, 0.0}, {gd, gu}, {0.0, 2.0 * gd}};
+      const double* vs = &d.vsigma[3 * i];
+      const double* rs = &d.v2rhosigma[6 * i];  // (s, a) rho-index-major
+      const double* s2 = &d.v2sigma2[6 * i];    // upper triangle of (a, b)
+      const double S[3][3] = {{s2[0], s2[1], s2[2]}, {s2[1], s2[3], s2[4]}, {s2[2], s2[4], s2[5]}};
+      for (int s = 0; s < 2; ++s)
+        for (int t = 0; t < 2; ++t) {
+          double v = 0.0;
+          for (int a = 0; a < 3; ++a) v += rs[3 * s + a] * J[a][t];
+          ng[2 * s + t] = v;  // d^2 e / dn_s dg_t
+          double w = 0.0;
+          for (int a = 0; a < 3; ++a)
+            for (int b = 0; b < 3; ++b) w += J[a][s] * S[a][b] * J[b][t];
+          gg[2 * s + t] = w;
+        }
+      // Second derivatives of sigma itself: d2 s_uu/dgu2 = 2, d2 s_ud/dgu dgd = 1, d2 s_dd/dgd2 = 2.
+      gg[0] += 2.0 * vs[0];
+      gg[1] += vs[1];
+      gg[2] += vs[1];
+      gg[3] += 2.0 * vs[2];
+    }
+  }
+}
+
+std::vector<Eigen::VectorXd> XcKernel::apply(const std::vector<Eigen::VectorXd>& dn) const {
+  const Mesh& mesh = *mesh_;
+  const int ns = ns_;
+  const int p = mesh.degree();
+  std::vector<Eigen::VectorXd> acc(ns, Eigen::VectorXd::Zero(mesh.num_nodes()));
+  for (std::size_t i = 0; i < node_.size(); ++i) {
+    const int k = node_[i], e = element_[i], q = local_[i];
+    const double wq = weight_[i];
+    double dnq[2] = {0, 0}, dgq[2] = {0, 0};
+    const Eigen::MatrixXd& D = mesh.density_derivative(e);
+    for (int s = 0; s < ns; ++s) {
+      dnq[s] = dn[s](k);
+      if (gradient_)
+        for (int a = 0; a <= p; ++a) dgq[s] += D(q, a) * dn[s](mesh.node(e, a));
+    }
+    const double* nn = &enn_[i * ns * ns];
+    const double* ng = gradient_ ? &eng_[i * ns * ns] : nullptr;
+    const double* gg = gradient_ ? &egg_[i * ns * ns] : nullptr;
+    for (int s = 0; s < ns; ++s) {
+      double a = 0.0, b = 0.0;
+      for (int t = 0; t < ns; ++t) {
+        a += nn[ns * s + t] * dnq[t];
+        if (gradient_) {
+          a += ng[ns * s + t] * dgq[t];
+          b += ng[ns * t + s] * dnq[t] + gg[ns * s + t] * dgq[t];
+        }
+      }
+      acc[s](k) += wq * a;
+      if (gradient_)
+        for (int c = 0; c <= p; ++c) acc[s](mesh.node(e, c)) += wq * b * D(q, c);
+    }
+  }
+  const Eigen::VectorXd& W = mesh.density_weight();
+  for (int s = 0; s < ns; ++s)
+    for (int k = 0; k < mesh.num_nodes(); ++k) acc[s](k) = W(k) > 0.0 ? acc[s](k) / W(k) : 0.0;
+  return acc;
+}
+
+}  // namespace stillpoint

@@ -1,0 +1,376 @@
+#include "stillpoint/gradient.hpp"
+
+#include <chrono>
+#include <cmath>
+#include <sstream>
+
+#include "stillpoint/errors.hpp"
+#include "stillpoint/xc_on_mesh.hpp"
+
+namespace stillpoint {
+
+namespace {
+
+bool acts_on(const ParameterRef& p, int system) { return p.system < 0 || p.system == system; }
+
+double& field_ref(SystemSpec& s, const ParameterRef& p) {
+  using K = ParameterRef::Kind;
+  switch (p.kind) {
+    case K::XcWeight:
+      if (s.xc_weights.empty()) s.xc_weights.assign(s.xc.size(), 1.0);
+      if (p.index < 0 || p.index >= static_cast<int>(s.xc_weights.size()))
+        throw InputError("parameter '" + p.name + "': system '" + s.name + "' has no xc term " + std::to_string(p.index));
+      return s.xc_weights[p.index];
+    case K::Gaussian:
+    case K::Harmonic: {
+      if (p.index < 0 || p.index >= static_cast<int>(s.line.potentials.size()))
+        throw InputError("parameter '" + p.name + "': system '" + s.name + "' has no potential " + std::to_string(p.index));
+      ExternalTerm& t = s.line.potentials[p.index];
+      const bool gauss = t.kind == ExternalTerm::Kind::Gaussian;
+      if ((p.kind == K::Gaussian) != gauss || t.kind == ExternalTerm::Kind::Table)
+        throw InputError("parameter '" + p.name + "': potential " + std::to_string(p.index) + " of '" + s.name +
+                         "' is not of that kind");
+      if (p.field == "depth" && gauss) return t.depth;
+      if (p.field == "width" && gauss) return t.width;
+      if (p.field == "omega" && !gauss) return t.omega;
+      if (p.field == "center") return t.center;
+      throw InputError("parameter '" + p.name + "': unknown field '" + p.field + "'");
+    }
+    case K::Nucleus: {
+      if (p.index < 0 || p.index >= static_cast<int>(s.line.nuclei.size()))
+        throw InputError("parameter '" + p.name + "': system '" + s.name + "' has no nucleus " + std::to_string(p.index));
+      Nucleus1d& n = s.line.nuclei[p.index];
+      if (p.field == "charge") return n.charge;
+      if (p.field == "position") return n.position;
+      if (p.field == "softening") return n.softening;
+      throw InputError("parameter '" + p.name + "': unknown nucleus field '" + p.field + "'");
+    }
+    case K::GridPotential: {
+      if (s.geometry != Geometry::Line) throw InputError("grid potential parameters need a line system");
+      if (s.nodal_potential.empty()) s.nodal_potential.assign(Mesh::line(s.grid).num_nodes(), 0.0);
+      if (p.index < 0 || p.index >= static_cast<int>(s.nodal_potential.size()))
+        throw InputError("parameter '" + p.name + "': node index out of range");
+      return s.nodal_potential[p.index];
+    }
+  }
+  throw std::logic_error("unhandled parameter kind");
+}
+
+// dV/dtheta_p at fixed density, per spin at every node.
+std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& P, const KsSolution& S, const ParameterRef& p) {
+  using K = ParameterRef::Kind;
+  const Mesh& m = P.mesh();
+  const int N = m.num_nodes();
+  const SystemSpec& s = P.spec();
+  Eigen::VectorXd v = Eigen::VectorXd::Zero(N);
+  switch (p.kind) {
+    case K::XcWeight: {
+      // The potential of the one term alone, with unit weight: d v_xc / d w_t.
+      XcFunctional term_only = P.xc();
+      for (std::size_t i = 0; i < term_only.size(); ++i) term_only.set_weight(i, static_cast<int>(i) == p.index ? 1.0 : 0.0);
+      return evaluate_xc(m, term_only, S.density, P.density_threshold()).potential;
+    }
+    case K::Gaussian: {
+      const ExternalTerm& t = s.line.potentials[p.index];
+      for (int k = 0; k < N; ++k) {
+        const double d = m.x()(k) - t.center, g = std::exp(-d * d / (2 * t.width * t.width));
+        if (p.field == "depth") v(k) = -g;
+        if (p.field == "center") v(k) = -t.depth * g * d / (t.width * t.width);
+        if (p.field == "width") v(k) = -t.depth * g * d * d / (t.width * t.width * t.width);
+      }
+      break;
+    }
+    case K::Harmonic: {
+      const ExternalTerm& t = s.line.potentials[p.index];
+      for (int k = 0; k < N; ++k) {
+        const double d = m.x()(k) - t.center;
+        if (p.field == "omega") v(k) = t.omega * d * d;
+        if (p.field == "center") v(k) = -t.omega * t.omega * d;
+      }
+      break;
+    }
+    case K::Nucleus: {
+      const Nucleus1d& n = s.line.nuclei[p.index];
+      for (int k = 0; k < N; ++k) {
+        const double d = m.x()(k) - n.position, q = d * d + n.softening * n.softening, r = std::sqrt(q);
+        if (p.field == "charge") v(k) = -1.0 / r;
+        if (p.field == "position") v(k) = -n.charge * d / (q * r);
+        if (p.field == "softening") v(k) = n.charge * n.softening / (q * r);
+      }
+      break;
+    }
+    case K::GridPotential:
+      v(p.index) = 1.0;
+      break;
+  }
+  return std::vector<Eigen::VectorXd>(P.nspin(), v);
+}
+
+// dE_nn/dtheta for nucleus parameters.
+double nuclear_repulsion_derivative(const SystemSpec& s, const ParameterRef& p) {
+  if (p.kind != ParameterRef::Kind::Nucleus || p.field == "softening") return 0.0;
+  const auto& nuc = s.line.nuclei;
+  const double b = std::isnan(s.line.nucleus_softening) ? s.line.electron_softening : s.line.nucleus_softening;
+  double d_e = 0.0;
+  for (std::size_t j = 0; j < nuc.size(); ++j) {
+    if (static_cast<int>(j) == p.index) continue;
+    const double d = nuc[p.index].position - nuc[j].position, q = d * d + b * b, r = std::sqrt(q);
+    if (p.field == "charge") d_e += nuc[j].charge / r;
+    if (p.field == "position") d_e += -nuc[p.index].charge * nuc[j].charge * d / (q * r);
+  }
+  return d_e;
+}
+
+// dE/dtheta at fixed density (stationarity of the Kohn–Sham energy).
+double explicit_energy_derivative(const KsProblem& P, const KsSolution& S, const ParameterRef& p) {
+  if (p.kind == ParameterRef::Kind::XcWeight) {
+    XcFunctional term_only = P.xc();
+    for (std::size_t i = 0; i < term_only.size(); ++i) term_only.set_weight(i, static_cast<int>(i) == p.index ? 1.0 : 0.0);
+    return xc_energy(P.mesh(), term_only, S.density, P.density_threshold());
+  }
+  const auto dv = parameter_potential(P, S, p);
+  return P.mesh().density_weight().dot(dv[0].cwiseProduct(S.total_density())) + nuclear_repulsion_derivative(P.spec(), p);
+}
+
+struct LevelRef {
+  int channel = -1, state = -1;
+  double energy = 0.0;
+};
+
+LevelRef find_level(const KsProblem& P, const KsSolution& S, const LossTerm& t) {
+  LevelRef best;
+  const bool any_spin = P.nspin() == 1;
+  if (t.state == "homo" || t.state == "lumo") {
+    const bool homo = t.state == "homo";
+    double homo_e = -std::numeric_limits<double>::infinity();
+    for (const Level& lv : S.levels)
+      if ((any_spin || lv.spin == t.spin) && lv.occupation > 0) homo_e = std::max(homo_e, lv.energy);
+    for (const Level& lv : S.levels) {
+      if (!(any_spin || lv.spin == t.spin)) continue;
+      if (homo && lv.occupation > 0 && (best.channel < 0 || lv.energy > best.energy))
+        best = {lv.channel, lv.index, lv.energy};
+      if (!homo && lv.occupation == 0 && lv.energy > homo_e && (best.channel < 0 || lv.energy < best.energy))
+        best = {lv.channel, lv.index, lv.energy};
+    }
+  } else {
+    for (const Level& lv : S.levels)
+      if ((any_spin || lv.spin == t.spin) && lv.label == t.state) best = {lv.channel, lv.index, lv.energy};
+  }
+  if (best.channel < 0)
+    throw InputError("loss term '" + t.name + "': no state '" + t.state + "' (spin " + std::to_string(t.spin) +
+                     ") in system '" + P.spec().name + "'");
+  return best;
+}
+
+}  // namespace
+
+Eigen::VectorXd parameter_values(const std::vector<SystemSpec>& systems, const std::vector<ParameterRef>& params) {
+  Eigen::VectorXd v(params.size());
+  for (std::size_t i = 0; i < params.size(); ++i) {
+    const int s = params[i].system < 0 ? 0 : params[i].system;
+    if (s >= static_cast<int>(systems.size())) throw InputError("parameter '" + params[i].name + "' names a missing system");
+    SystemSpec copy = systems[s];
+    v(i) = field_ref(copy, params[i]);
+  }
+  return v;
+}
+
+std::vector<SystemSpec> apply_parameters(const std::vector<SystemSpec>& systems, const std::vector<ParameterRef>& params,
+                                         const Eigen::VectorXd& theta) {
+  std::vector<SystemSpec> out = systems;
+  for (std::size_t i = 0; i < params.size(); ++i)
+    for (int s = 0; s < static_cast<int>(out.size()); ++s)
+      if (acts_on(params[i], s)) {
+        double& f = field_ref(out[s], params[i]);
+        // A nuclear charge changes the electron count unless the net charge follows it; the
+        // derivative is defined at fixed occupations, so the electron count is kept.
+        if (params[i].kind == ParameterRef::Kind::Nucleus && params[i].field == "charge") out[s].charge += theta(i) - f;
+        f = theta(i);
+      }
+  return out;
+}
+
+GradientProblem::GradientProblem(std::vector<SystemSpec> systems, std::vector<ParameterRef> params,
+                                 std::vector<LossTerm> loss, GradientOptions options)
+    : systems_(std::move(systems)), params_(std::move(params)), loss_(std::move(loss)), options_(options) {
+  if (loss_.empty()) throw InputError("the loss has no terms");
+  for (const auto& t : loss_) {
+    if (t.system < 0 || t.system >= static_cast<int>(systems_.size()))
+      throw InputError("loss term '" + t.name + "' names a missing system");
+    if (t.kind == LossTerm::Kind::EnergyDifference && (t.system_b < 0 || t.system_b >= static_cast<int>(systems_.size())))
+      throw InputError("loss term '" + t.name + "' needs two existing systems");
+  }
+}
+
+namespace {
+
+struct Evaluated {
+  std::vector<KsProblem> problems;
+  std::vector<KsSolution> solutions;
+};
+
+struct Partials {
+  double loss = 0.0;
+  std::vector<double> term_values;
+  std::vector<double> dE;                      // per system
+  std::vector<Eigen::VectorXd> dn;             // per system, W-gradient w.r.t. total density (all nodes)
+  std::vector<std::vector<std::pair<LevelRef, double>>> deps;  // per system
+};
+
+Partials loss_partials(const std::vector<LossTerm>& terms, const Evaluated& ev) {
+  Partials P;
+  const std::size_t ns = ev.problems.size();
+  P.dE.assign(ns, 0.0);
+  P.deps.resize(ns);
+  for (std::size_t s = 0; s < ns; ++s) P.dn.push_back(Eigen::VectorXd::Zero(ev.problems[s].mesh().num_nodes()));
+  for (const LossTerm& t : terms) {
+    const KsProblem& prob = ev.problems[t.system];
+    const KsSolution& sol = ev.solutions[t.system];
+    double q = 0.0;
+    auto outer = [&](double qv) {
+      const double val = t.target ? t.weight * (qv - *t.target) * (qv - *t.target) : t.weight * qv;
+      const double d = t.target ? 2.0 * t.weight * (qv - *t.target) : t.weight;
+      P.loss += val;
+      P.term_values.push_back(val);
+      return d;
+    };
+    switch (t.kind) {
+      case LossTerm::Kind::Density: {
+        const Eigen::VectorXd n = sol.total_density();
+        const Eigen::VectorXd& W = prob.mesh().density_weight();
+        if (static_cast<int>(t.reference.size()) != n.size())
+          throw InputError("loss term '" + t.name + "': the reference density has the wrong number of nodes");
+        Eigen::VectorXd diff(n.size());
+        for (int k = 0; k < n.size(); ++k) diff(k) = n(k) - t.reference[k];
+        Eigen::VectorXd region = Eigen::VectorXd::Ones(n.size());
+        if (!t.region.empty())
+          for (int k = 0; k < n.size(); ++k) region(k) = t.region[k];
+        q = (W.array() * region.array() * diff.array().square()).sum();
+        // Linear in q: weight * sum W r (n - n_ref)^2; a target makes no sense for a distance.
+        P.loss += t.weight * q;
+        P.term_values.push_back(t.weight * q);
+        P.dn[t.system] += 2.0 * t.weight * region.cwiseProduct(diff);
+        break;
+      }
+      case LossTerm::Kind::Energy:
+        P.dE[t.system] += outer(sol.energy.total);
+        break;
+      case LossTerm::Kind::EnergyDifference: {
+        const double d = outer(sol.energy.total - ev.solutions[t.system_b].energy.total);
+        P.dE[t.system] += d;
+        P.dE[t.system_b] -= d;
+        break;
+      }
+      case LossTerm::Kind::Eigenvalue: {
+        const LevelRef lv = find_level(prob, sol, t);
+        P.deps[t.system].push_back({lv, outer(lv.energy)});
+        break;
+      }
+    }
+  }
+  return P;
+}
+
+}  // namespace
+
+static Evaluated solve_all(const std::vector<SystemSpec>& specs, const GradientOptions& opt, const ScfOptions& scf,
+                           std::vector<KsSolution>& warm) {
+  Evaluated ev;
+  for (std::size_t s = 0; s < specs.size(); ++s) {
+    ev.problems.emplace_back(specs[s]);
+    ev.problems.back().set_density_threshold(opt.density_threshold);
+  }
+  warm.resize(specs.size());
+  for (std::size_t s = 0; s < specs.size(); ++s) {
+    const KsSolution* start = warm[s].v_s.empty() ? nullptr : &warm[s];
+    ev.solutions.push_back(solve_scf(ev.problems[s], scf, start));
+    warm[s] = ev.solutions.back();
+  }
+  return ev;
+}
+
+double GradientProblem::loss(const Eigen::VectorXd& theta, const ScfOptions* scf) {
+  const Evaluated ev = solve_all(apply_parameters(systems_, params_, theta), options_, scf ? *scf : options_.scf, warm_);
+  return loss_partials(loss_, ev).loss;
+}
+
+GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
+  GradientResult res;
+  const auto t0 = std::chrono::steady_clock::now();
+  const Evaluated ev = solve_all(apply_parameters(systems_, params_, theta), options_, options_.scf, warm_);
+  const auto t1 = std::chrono::steady_clock::now();
+  const Partials L = loss_partials(loss_, ev);
+  res.loss = L.loss;
+  res.term_values = L.term_values;
+  res.gradient = Eigen::VectorXd::Zero(params_.size());
+  for (std::size_t s = 0; s < ev.problems.size(); ++s) {
+    const KsProblem& P = ev.problems[s];
+    const KsSolution& S = ev.solutions[s];
+    // Energy part: stationarity, no solve.
+    if (L.dE[s] != 0.0)
+      for (std::size_t p = 0; p < params_.size(); ++p)
+        if (acts_on(params_[p], static_cast<int>(s))) res.gradient(p) += L.dE[s] * explicit_energy_derivative(P, S, params_[p]);
+    const bool needs_response = L.dn[s].cwiseAbs().maxCoeff() > 0.0 || !L.deps[s].empty();
+    if (!needs_response) continue;
+    const Response R(P, S, options_.response);
+    std::vector<Eigen::VectorXd> dn_spin(P.nspin(), L.dn[s]);
+    const Eigen::VectorXd gn = R.pack(dn_spin);
+    Eigen::VectorXd geps = Eigen::VectorXd::Zero(R.size());
+    for (const auto& [lv, d] : L.deps[s]) geps += d * R.eigenvalue_gradient(lv.channel, lv.state);
+    if (options_.mode == GradientOptions::Mode::Adjoint) {
+      const Eigen::VectorXd gv = R.chi0(gn) + geps;
+      const Eigen::VectorXd zeta = R.solve_adjoint(gv);
+      res.linear_solves++;
+      res.krylov_iterations += R.last_iterations();
+      const auto zs = R.unpack(zeta);
+      const Eigen::VectorXd& W = P.mesh().density_weight();
+      for (std::size_t p = 0; p < params_.size(); ++p) {
+        if (!acts_on(params_[p], static_cast<int>(s))) continue;
+        if (params_[p].kind == ParameterRef::Kind::GridPotential) {
+          const int k = params_[p].index;
+          for (int sp = 0; sp < P.nspin(); ++sp) res.gradient(p) += W(k) * zs[sp](k);
+        } else {
+          res.gradient(p) += R.dot(zeta, R.pack(parameter_potential(P, S, params_[p])));
+        }
+      }
+    } else {
+      for (std::size_t p = 0; p < params_.size(); ++p) {
+        if (!acts_on(params_[p], static_cast<int>(s))) continue;
+        const Eigen::VectorXd vdot = R.solve_tangent(R.pack(parameter_potential(P, S, params_[p])));
+        res.linear_solves++;
+        res.krylov_iterations += R.last_iterations();
+        res.gradient(p) += R.dot(gn, R.chi0(vdot)) + R.dot(geps, vdot);
+      }
+    }
+  }
+  res.scf_seconds = std::chrono::duration<double>(t1 - t0).count();
+  res.gradient_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t1).count();
+  return res;
+}
+
+Eigen::VectorXd GradientProblem::finite_difference_gradient(const Eigen::VectorXd& theta, const Eigen::VectorXd& steps,
+                                                            const ScfOptions& tight) {
+  Eigen::VectorXd g(theta.size());
+  loss(theta, &tight);  // converge the warm starts tightly at the base point first
+  const std::vector<KsSolution> base = warm_;
+  // Richardson extrapolation of central differences at h and h/2 cancels the h^2 error, so
+  // steps large enough to keep SCF noise negligible still give 1e-8-level derivatives.
+  auto central = [&](int p, double h) {
+    Eigen::VectorXd a = theta, b = theta;
+    a(p) += h;
+    b(p) -= h;
+    warm_ = base;
+    const double la = loss(a, &tight);
+    warm_ = base;
+    const double lb = loss(b, &tight);
+    return (la - lb) / (2.0 * h);
+  };
+  for (int p = 0; p < theta.size(); ++p) {
+    const double d1 = central(p, steps(p)), d2 = central(p, 0.5 * steps(p));
+    g(p) = (4.0 * d2 - d1) / 3.0;
+  }
+  warm_ = base;
+  return g;
+}
+
+}  // namespace stillpoint
