@@ -23,10 +23,12 @@ struct ParameterRef {
     Harmonic,       ///< field omega | center of line potential `index` (harmonic)
     Nucleus,        ///< field charge | position | softening of line nucleus `index`
     GridPotential,  ///< value of the extra nodal potential at mesh node `index` (line)
+    XcParameter,    ///< parameter `sub` (named `field`) of model xc term `index`
   };
   Kind kind = Kind::XcWeight;
   int system = -1;
   int index = 0;
+  int sub = 0;
   std::string field;
   std::string name;
   double lower = -std::numeric_limits<double>::infinity();

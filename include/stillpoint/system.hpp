@@ -52,6 +52,8 @@ struct SystemSpec {
   std::vector<std::string> xc;
   /// Weight of each xc term (empty: all 1); a differentiable parameter family.
   std::vector<double> xc_weights;
+  /// Parameters of each model xc term (one list per term; an empty list means the defaults).
+  std::vector<std::vector<double>> xc_parameters;
   /// Line only: extra potential at every mesh node (hartree), added to v_ext; empty = none.
   /// A differentiable "grid potential" parameter family; its size must equal the node count.
   std::vector<double> nodal_potential;

@@ -52,6 +52,18 @@ class XcTerm {
   virtual bool needs_gradient() const = 0;
   /// Adds weight * (e and its derivatives up to `order`) into `out`, which has been reset by the caller.
   virtual void accumulate(const XcPointData& in, double weight, int order, XcDerivatives& out) const = 0;
+
+  // Trainable terms (model families, user formulas) expose their parameters; libxc terms have none.
+  virtual std::vector<std::string> parameter_names() const { return {}; }
+  virtual std::vector<double> parameters() const { return {}; }
+  /// A copy of this term with other parameter values.
+  virtual std::unique_ptr<XcTerm> with_parameters(const std::vector<double>&) const { return nullptr; }
+  /// Per point: d e / d theta_p (np), d vrho / d theta_p (np * nspin), d vsigma / d theta_p
+  /// (np * nsigma, GGA only), libxc layout, unweighted.
+  virtual void parameter_derivatives(const XcPointData& in, int p, std::vector<double>& de, std::vector<double>& dvrho,
+                                     std::vector<double>& dvsigma) const {
+    (void)in, (void)p, (void)de, (void)dvrho, (void)dvsigma;
+  }
 };
 
 class XcFunctional {
@@ -64,6 +76,8 @@ class XcFunctional {
   const XcTerm& term(std::size_t i) const { return *terms_[i]; }
   double weight(std::size_t i) const { return weights_[i]; }
   void set_weight(std::size_t i, double w) { weights_[i] = w; }
+  /// Replaces term i (same weight), e.g. with other parameter values.
+  void replace(std::size_t i, std::unique_ptr<XcTerm> term) { terms_[i] = std::move(term); }
   /// "lda_x + lda_c_vwn" (weights shown when they are not 1).
   std::string describe() const;
   void evaluate(const XcPointData& in, int order, XcDerivatives& out) const;
@@ -81,6 +95,9 @@ std::unique_ptr<XcTerm> make_libxc_term(const std::string& name, const XcSetting
 /// The functional named by a list such as {"lda_x", "lda_c_vwn"}; an empty list or {"none"}
 /// gives no exchange-correlation (Hartree only). A number in front of a name with '*'
 /// ("0.5*gga_x_pbe") sets the term's weight.
-XcFunctional make_functional(const std::vector<std::string>& names, const XcSettings& settings);
+/// "model:<family>" names a trainable model family (model_functional.hpp); `parameters`
+/// (one list per term, empty = defaults) sets their parameters.
+XcFunctional make_functional(const std::vector<std::string>& names, const XcSettings& settings,
+                             const std::vector<std::vector<double>>& parameters = {});
 
 }  // namespace stillpoint

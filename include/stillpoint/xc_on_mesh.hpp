@@ -53,3 +53,16 @@ class XcKernel {
 };
 
 }  // namespace stillpoint
+
+namespace stillpoint {
+
+/// Derivatives with respect to parameter p of term `term` at fixed density: d E_xc / d theta
+/// and d v_xc / d theta per spin (the exact mixed second derivative of the discrete energy).
+struct XcParameterDerivative {
+  double energy = 0.0;
+  std::vector<Eigen::VectorXd> potential;
+};
+XcParameterDerivative xc_parameter_derivative(const Mesh& mesh, const XcFunctional& xc, std::size_t term, int p,
+                                              const std::vector<Eigen::VectorXd>& density, double density_threshold);
+
+}  // namespace stillpoint

@@ -45,6 +45,22 @@ double& field_ref(SystemSpec& s, const ParameterRef& p) {
       if (p.field == "softening") return n.softening;
       throw InputError("parameter '" + p.name + "': unknown nucleus field '" + p.field + "'");
     }
+    case K::XcParameter: {
+      if (s.xc_parameters.size() < s.xc.size()) s.xc_parameters.resize(s.xc.size());
+      if (p.index < 0 || p.index >= static_cast<int>(s.xc.size()))
+        throw InputError("parameter '" + p.name + "': system '" + s.name + "' has no xc term " + std::to_string(p.index));
+      auto& list = s.xc_parameters[p.index];
+      if (list.empty()) {
+        XcSettings xs;
+        xs.one_dimensional = s.geometry == Geometry::Line;
+        xs.softening = s.line.electron_softening;
+        const XcFunctional f = make_functional({s.xc[p.index]}, xs);
+        list = f.term(0).parameters();
+      }
+      if (p.sub < 0 || p.sub >= static_cast<int>(list.size()))
+        throw InputError("parameter '" + p.name + "': term '" + s.xc[p.index] + "' has no parameter " + std::to_string(p.sub));
+      return list[p.sub];
+    }
     case K::GridPotential: {
       if (s.geometry != Geometry::Line) throw InputError("grid potential parameters need a line system");
       if (s.nodal_potential.empty()) s.nodal_potential.assign(Mesh::line(s.grid).num_nodes(), 0.0);
@@ -102,6 +118,8 @@ std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& P, const KsSol
     case K::GridPotential:
       v(p.index) = 1.0;
       break;
+    case K::XcParameter:
+      return xc_parameter_derivative(m, P.xc(), p.index, p.sub, S.density, P.density_threshold()).potential;
   }
   return std::vector<Eigen::VectorXd>(P.nspin(), v);
 }
@@ -128,6 +146,8 @@ double explicit_energy_derivative(const KsProblem& P, const KsSolution& S, const
     for (std::size_t i = 0; i < term_only.size(); ++i) term_only.set_weight(i, static_cast<int>(i) == p.index ? 1.0 : 0.0);
     return xc_energy(P.mesh(), term_only, S.density, P.density_threshold());
   }
+  if (p.kind == ParameterRef::Kind::XcParameter)
+    return xc_parameter_derivative(P.mesh(), P.xc(), p.index, p.sub, S.density, P.density_threshold()).energy;
   const auto dv = parameter_potential(P, S, p);
   return P.mesh().density_weight().dot(dv[0].cwiseProduct(S.total_density())) + nuclear_repulsion_derivative(P.spec(), p);
 }

@@ -46,7 +46,7 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
   xs.one_dimensional = spec.geometry == Geometry::Line;
   xs.softening = spec.line.electron_softening;
   xs.density_threshold = density_threshold_;
-  xc_ = make_functional(spec.xc, xs);
+  xc_ = make_functional(spec.xc, xs, spec.xc_parameters);
   if (!spec.xc_weights.empty()) {
     if (spec.xc_weights.size() != xc_.size())
       throw InputError("xc_weights has " + std::to_string(spec.xc_weights.size()) + " entries for " +

@@ -1,5 +1,7 @@
 #include "stillpoint/reference_check.hpp"
 
+#include <algorithm>
+#include <cctype>
 #include <chrono>
 #include <cmath>
 #include <cstdio>
@@ -48,11 +50,50 @@ int column_of(const std::string& line, std::size_t field) {
 
 }  // namespace
 
+namespace {
+
+const char* kQuantityHelp = "valid: Etot, Ekin, Ecoul, Eenuc, Exc, eps_<n><l> (LDA) or eps_<n><l>_up / eps_<n><l>_down (LSD)";
+
+// Checks a quantity name against the approximation and the configuration, so that a table
+// with a typo fails before any SCF runs. Returns an empty string when it is valid.
+std::string quantity_problem(const std::string& q, bool lsd, const std::vector<Subshell>& shells) {
+  static const std::vector<std::string> energies = {"Etot", "Ekin", "Ecoul", "Eenuc", "Exc"};
+  if (std::find(energies.begin(), energies.end(), q) != energies.end()) return {};
+  if (q.rfind("eps_", 0) != 0) {
+    const std::string near = nearest_word(q, energies);
+    return "unknown quantity '" + q + "'" + (near.empty() ? "" : "; did you mean '" + near + "'?") + " (" + kQuantityHelp + ")";
+  }
+  std::string label = q.substr(4);
+  const bool up = label.size() > 3 && label.compare(label.size() - 3, 3, "_up") == 0;
+  const bool down = label.size() > 5 && label.compare(label.size() - 5, 5, "_down") == 0;
+  if (lsd && !up && !down)
+    return "LSD eigenvalues need a spin suffix: " + q + "_down (majority spin) or " + q + "_up (minority spin)";
+  if (!lsd && (up || down)) return "LDA (spin-unpolarized) eigenvalues have no spin suffix: write eps_<n><l>";
+  if (up) label.resize(label.size() - 3);
+  if (down) label.resize(label.size() - 5);
+  static const std::string letters = "spdfg";
+  std::size_t used = 0;
+  while (used < label.size() && std::isdigit(static_cast<unsigned char>(label[used]))) ++used;
+  if (used == 0 || used + 1 != label.size() || letters.find(label[used]) == std::string::npos)
+    return "cannot read the level in '" + q + "' (" + kQuantityHelp + ")";
+  const int n = std::stoi(label.substr(0, used));
+  const int l = static_cast<int>(letters.find(label[used]));
+  if (n <= l) return "level " + label + " does not exist (l must be smaller than n)";
+  // The solver computes, for every l of the configuration, the levels up to the largest listed n.
+  for (const Subshell& sh : shells)
+    if (sh.l == l && sh.n >= n) return {};
+  return "level " + label + " is not part of the configuration, so it is not computed";
+}
+
+}  // namespace
+
 std::vector<ReferenceRow> read_reference_table(const std::string& path) {
   std::ifstream in(path);
   if (!in) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open reference table");
   static const std::vector<std::string> header = {"Z", "symbol", "charge", "configuration", "approximation", "quantity", "value"};
   std::vector<ReferenceRow> rows;
+  std::map<std::tuple<int, int, std::string, std::string>, int> seen;         // (Z, charge, appr, quantity) -> line
+  std::map<std::tuple<int, int, std::string>, std::pair<std::vector<Subshell>, int>> configs;  // group -> config, line
   std::string line;
   int lineno = 0;
   bool have_header = false;
@@ -65,47 +106,69 @@ std::vector<ReferenceRow> read_reference_table(const std::string& path) {
       if (f != header) {
         std::string expect;
         for (const auto& h : header) expect += (expect.empty() ? "" : ",") + h;
-        throw InputError(SourceLocation{path, lineno, 1, ""}, "expected the header line '" + expect + "'");
+        std::size_t i = 0;
+        while (i < f.size() && i < header.size() && f[i] == header[i]) ++i;
+        const std::string found = i < f.size() ? "'" + f[i] + "'" : "nothing";
+        const std::string wanted = i < header.size() ? "'" + header[i] + "'" : "the end of the line";
+        throw InputError(SourceLocation{path, lineno, column_of(line, i), "header"},
+                         "expected the header line '" + expect + "'; field " + std::to_string(i + 1) + " holds " +
+                             found + " where " + wanted + " belongs");
       }
       have_header = true;
       continue;
     }
     if (f.size() != header.size())
       throw InputError(SourceLocation{path, lineno, 1, ""},
-                       "expected 7 comma-separated fields, found " + std::to_string(f.size()));
+                       "expected 7 comma-separated fields (Z,symbol,charge,configuration,approximation,quantity,value), found " +
+                           std::to_string(f.size()));
     ReferenceRow r;
     r.file = path;
     r.line = lineno;
-    auto number = [&](std::size_t i, const char* name) {
+    auto where = [&](std::size_t i) { return SourceLocation{path, lineno, column_of(line, i), header[i]}; };
+    auto number = [&](std::size_t i) {
       try {
         std::size_t used = 0;
         const double v = std::stod(f[i], &used);
-        if (used != f[i].size() || !std::isfinite(v)) throw std::invalid_argument(name);
+        if (used != f[i].size() || !std::isfinite(v)) throw std::invalid_argument(header[i]);
         return v;
       } catch (const std::exception&) {
-        throw InputError(SourceLocation{path, lineno, column_of(line, i), name}, "'" + f[i] + "' is not a number");
+        throw InputError(where(i), "'" + f[i] + "' is not a number");
       }
     };
-    const double z = number(0, "Z");
-    const double q = number(2, "charge");
-    if (z != std::round(z) || z < 1 || z > 118)
-      throw InputError(SourceLocation{path, lineno, column_of(line, 0), "Z"}, "Z must be an integer 1..118");
-    if (q != std::round(q)) throw InputError(SourceLocation{path, lineno, column_of(line, 2), "charge"}, "charge must be an integer");
+    const double z = number(0);
+    const double q = number(2);
+    if (z != std::round(z) || z < 1 || z > 118) throw InputError(where(0), "Z must be an integer 1..118");
+    if (q != std::round(q)) throw InputError(where(2), "charge must be an integer");
     r.Z = static_cast<int>(z);
     r.charge = static_cast<int>(q);
+    if (r.charge >= r.Z) throw InputError(where(2), "charge must be smaller than Z (no electrons left)");
     r.symbol = f[1];
     if (element_symbol(r.Z) != r.symbol)
-      throw InputError(SourceLocation{path, lineno, column_of(line, 1), "symbol"},
-                       "symbol '" + r.symbol + "' does not match Z = " + std::to_string(r.Z) + " (" + element_symbol(r.Z) + ")");
+      throw InputError(where(1), "symbol '" + r.symbol + "' does not match Z = " + std::to_string(r.Z) + " (" +
+                                     element_symbol(r.Z) + ")");
     r.configuration = f[3];
     r.approximation = f[4];
     if (r.approximation != "LDA" && r.approximation != "LSD")
-      throw InputError(SourceLocation{path, lineno, column_of(line, 4), "approximation"},
-                       "approximation must be LDA (spin-unpolarized) or LSD (spin-polarized)");
+      throw InputError(where(4), "approximation must be LDA (spin-unpolarized) or LSD (spin-polarized), not '" +
+                                     r.approximation + "'");
     r.quantity = f[5];
-    r.value = number(6, "value");
+    r.value = number(6);
     // Validate the configuration now so that errors point at the table line.
-    parse_configuration(r.configuration, SourceLocation{path, lineno, column_of(line, 3), "configuration"});
+    const std::vector<Subshell> shells = parse_configuration(r.configuration, where(3));
+    const double ne = electron_count(shells);
+    if (std::abs(ne - (r.Z - r.charge)) > 1e-9) {
+      std::ostringstream m;
+      m << "the configuration holds " << ne << " electrons but Z - charge = " << r.Z - r.charge;
+      throw InputError(where(3), m.str());
+    }
+    const auto group = std::make_tuple(r.Z, r.charge, r.approximation);
+    if (const auto [it, fresh] = configs.emplace(group, std::make_pair(shells, lineno)); !fresh && it->second.first != shells)
+      throw InputError(where(3), "configuration differs from line " + std::to_string(it->second.second) +
+                                     " of the same atom, charge and approximation");
+    if (const std::string problem = quantity_problem(r.quantity, r.approximation == "LSD", shells); !problem.empty())
+      throw InputError(where(5), problem);
+    if (const auto [it, fresh] = seen.emplace(std::make_tuple(r.Z, r.charge, r.approximation, r.quantity), lineno); !fresh)
+      throw InputError(where(5), "duplicate of line " + std::to_string(it->second) + " (same Z, charge, approximation and quantity)");
     rows.push_back(r);
   }
   if (!have_header) throw InputError(SourceLocation{path, 0, 0, ""}, "the table is empty (no header line)");
@@ -131,7 +194,9 @@ CheckReport run_reference_check(const std::vector<ReferenceRow>& rows, const Che
         throw InputError(SourceLocation{r->file, r->line, 0, "configuration"},
                          "configuration differs from line " + std::to_string(first.line) + " of the same atom and approximation");
     SystemSpec s;
-    s.name = first.symbol + (first.charge ? "+" + std::to_string(first.charge) : "") + "_" + first.approximation;
+    s.name = first.symbol;  // built with append: GCC 12 warns falsely (-Wrestrict) on operator+
+    if (first.charge) s.name.append("+").append(std::to_string(first.charge));
+    s.name.append("_").append(first.approximation);
     s.geometry = Geometry::Radial;
     s.atom.Z = first.Z;
     s.charge = first.charge;
@@ -236,7 +301,12 @@ std::string check_report_json(const CheckReport& rep, double tol) {
                    {"deviation", r.deviation},
                    {"passed", r.passed}});
   j["results"] = arr;
-  j["summary"] = {{"n_checked", rep.n_checked}, {"n_failed", rep.n_failed}, {"max_abs_deviation", rep.max_abs_deviation}};
+  j["summary"] = {{"n_checked", rep.n_checked},
+                  {"n_failed", rep.n_failed},
+                  {"n_passed", rep.n_checked - rep.n_failed},
+                  {"max_abs_deviation", rep.max_abs_deviation},
+                  {"passed", rep.n_failed == 0},
+                  {"seconds", rep.seconds}};
   return j.dump(2) + "\n";
 }
 
@@ -249,6 +319,7 @@ std::string check_report_junit(const CheckReport& rep, double tol) {
         case '>': o += "&gt;"; break;
         case '&': o += "&amp;"; break;
         case '"': o += "&quot;"; break;
+        case '\'': o += "&apos;"; break;
         default: o += c;
       }
     }
@@ -257,11 +328,16 @@ std::string check_report_junit(const CheckReport& rep, double tol) {
   std::ostringstream o;
   char buf[512];
   o << "<?xml version=\"1.0\" encoding=\"UTF-8\"?>\n";
-  std::snprintf(buf, sizeof buf, "<testsuites><testsuite name=\"stillpoint-check\" tests=\"%d\" failures=\"%d\" time=\"%.3f\">\n",
-                rep.n_checked, rep.n_failed, rep.seconds);
+  std::snprintf(buf, sizeof buf,
+                "<testsuites name=\"stillpoint check\" tests=\"%d\" failures=\"%d\" errors=\"0\" time=\"%.3f\">\n"
+                "<testsuite name=\"stillpoint-check\" tests=\"%d\" failures=\"%d\" errors=\"0\" skipped=\"0\" time=\"%.3f\">\n",
+                rep.n_checked, rep.n_failed, rep.seconds, rep.n_checked, rep.n_failed, rep.seconds);
   o << buf;
   for (const auto& r : rep.results) {
-    const std::string cls = r.row.symbol + (r.row.charge ? "+" + std::to_string(r.row.charge) : "") + "." + r.row.approximation;
+    // Built with append: GCC 12 warns falsely (-Wrestrict) on operator+ chains here.
+    std::string cls = r.row.symbol;
+    if (r.row.charge) cls.append(r.row.charge > 0 ? "+" : "").append(std::to_string(r.row.charge));
+    cls.append(".").append(r.row.approximation);
     o << "  <testcase classname=\"" << esc(cls) << "\" name=\"" << esc(r.row.quantity) << "\"";
     if (r.passed) {
       o << "/>\n";
@@ -271,7 +347,7 @@ std::string check_report_junit(const CheckReport& rep, double tol) {
       o << "><failure message=\"" << esc(buf) << "\"/></testcase>\n";
     }
   }
-  o << "</testsuite></testsuites>\n";
+  o << "</testsuite>\n</testsuites>\n";
   return o.str();
 }
 

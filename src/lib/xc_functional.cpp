@@ -9,6 +9,7 @@
 #include <sstream>
 
 #include "stillpoint/errors.hpp"
+#include "stillpoint/model_functional.hpp"
 #include "stillpoint/soft_exchange_1d.hpp"
 
 namespace stillpoint {
@@ -345,9 +346,11 @@ std::unique_ptr<XcTerm> make_libxc_term(const std::string& name, const XcSetting
   return std::make_unique<LibxcTerm>(id, settings);
 }
 
-XcFunctional make_functional(const std::vector<std::string>& names, const XcSettings& settings) {
+XcFunctional make_functional(const std::vector<std::string>& names, const XcSettings& settings,
+                             const std::vector<std::vector<double>>& parameters) {
   XcFunctional f;
-  for (const std::string& item : names) {
+  for (std::size_t idx = 0; idx < names.size(); ++idx) {
+    const std::string& item = names[idx];
     if (lower(item) == "none") continue;
     double weight = 1.0;
     std::string nm = item;
@@ -360,7 +363,13 @@ XcFunctional make_functional(const std::vector<std::string>& names, const XcSett
       }
       nm = item.substr(star + 1);
     }
-    f.add(make_libxc_term(nm, settings), weight);
+    const std::vector<double> params = idx < parameters.size() ? parameters[idx] : std::vector<double>{};
+    if (nm.rfind("model:", 0) == 0) {
+      f.add(make_model_term(nm.substr(6), params, settings), weight);
+    } else {
+      if (!params.empty()) throw InputError("functional '" + nm + "' has no trainable parameters (only model: terms do)");
+      f.add(make_libxc_term(nm, settings), weight);
+    }
   }
   return f;
 }

@@ -65,35 +65,25 @@ PointMap gather(const Mesh& mesh, const std::vector<Eigen::VectorXd>& n, bool gr
   return map;
 }
 
-}  // namespace
-
-XcOnMesh evaluate_xc(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& n,
-                     double thr) {
-  const int ns = static_cast<int>(n.size());
+// v_s,k = (1/W_k) dE/dn_s,k from point derivatives e_n (vrho) and e_sigma (vsigma): the LDA
+// part lands on the point's node, the gradient part goes through the element's D matrix.
+std::vector<Eigen::VectorXd> assemble_potential(const Mesh& mesh, const PointMap& map, const std::vector<double>& grad,
+                                                int ns, bool gradient, const std::vector<double>& vrho,
+                                                const std::vector<double>& vsigma) {
   const int p = mesh.degree();
-  XcOnMesh out;
-  out.potential.assign(ns, Eigen::VectorXd::Zero(mesh.num_nodes()));
-  if (xc.empty()) return out;
-  const bool gradient = xc.needs_gradient();
-  XcPointData pts;
-  std::vector<double> grad;
-  const PointMap map = gather(mesh, n, gradient, thr, pts, grad);
-  XcDerivatives d;
-  xc.evaluate(pts, 1, d);
   std::vector<Eigen::VectorXd> dE(ns, Eigen::VectorXd::Zero(mesh.num_nodes()));
-  for (std::size_t i = 0; i < pts.np; ++i) {
+  for (std::size_t i = 0; i < map.node.size(); ++i) {
     const double wq = map.weight[i];
-    out.energy += wq * d.e[i];
-    for (int s = 0; s < ns; ++s) dE[s](map.node[i]) += wq * d.vrho[ns * i + s];
+    for (int s = 0; s < ns; ++s) dE[s](map.node[i]) += wq * vrho[ns * i + s];
     if (gradient) {
       // dE/dg_s for the gradient g_s = (D n_s)_q, then through D to the element's nodes.
       double dg[2];
       if (ns == 1) {
-        dg[0] = 2.0 * d.vsigma[i] * grad[i];
+        dg[0] = 2.0 * vsigma[i] * grad[i];
       } else {
         const double g0 = grad[2 * i], g1 = grad[2 * i + 1];
-        dg[0] = 2.0 * d.vsigma[3 * i] * g0 + d.vsigma[3 * i + 1] * g1;
-        dg[1] = 2.0 * d.vsigma[3 * i + 2] * g1 + d.vsigma[3 * i + 1] * g0;
+        dg[0] = 2.0 * vsigma[3 * i] * g0 + vsigma[3 * i + 1] * g1;
+        dg[1] = 2.0 * vsigma[3 * i + 2] * g1 + vsigma[3 * i + 1] * g0;
       }
       const Eigen::MatrixXd& D = mesh.density_derivative(map.element[i]);
       const int q = map.local[i], e = map.element[i];
@@ -103,7 +93,26 @@ XcOnMesh evaluate_xc(const Mesh& mesh, const XcFunctional& xc, const std::vector
   }
   const Eigen::VectorXd& W = mesh.density_weight();
   for (int s = 0; s < ns; ++s)
-    for (int k = 0; k < mesh.num_nodes(); ++k) out.potential[s](k) = W(k) > 0.0 ? dE[s](k) / W(k) : 0.0;
+    for (int k = 0; k < mesh.num_nodes(); ++k) dE[s](k) = W(k) > 0.0 ? dE[s](k) / W(k) : 0.0;
+  return dE;
+}
+
+}  // namespace
+
+XcOnMesh evaluate_xc(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& n,
+                     double thr) {
+  const int ns = static_cast<int>(n.size());
+  XcOnMesh out;
+  out.potential.assign(ns, Eigen::VectorXd::Zero(mesh.num_nodes()));
+  if (xc.empty()) return out;
+  const bool gradient = xc.needs_gradient();
+  XcPointData pts;
+  std::vector<double> grad;
+  const PointMap map = gather(mesh, n, gradient, thr, pts, grad);
+  XcDerivatives d;
+  xc.evaluate(pts, 1, d);
+  for (std::size_t i = 0; i < pts.np; ++i) out.energy += map.weight[i] * d.e[i];
+  out.potential = assemble_potential(mesh, map, grad, ns, gradient, d.vrho, d.vsigma);
   return out;
 }
 
@@ -220,6 +229,29 @@ std::vector<Eigen::VectorXd> XcKernel::apply(const std::vector<Eigen::VectorXd>&
   for (int s = 0; s < ns; ++s)
     for (int k = 0; k < mesh.num_nodes(); ++k) acc[s](k) = W(k) > 0.0 ? acc[s](k) / W(k) : 0.0;
   return acc;
+}
+
+}  // namespace stillpoint
+
+namespace stillpoint {
+
+XcParameterDerivative xc_parameter_derivative(const Mesh& mesh, const XcFunctional& xc, std::size_t term, int p,
+                                              const std::vector<Eigen::VectorXd>& n, double thr) {
+  const int ns = static_cast<int>(n.size());
+  XcParameterDerivative out;
+  const XcTerm& t = xc.term(term);
+  const bool gradient = xc.needs_gradient();
+  XcPointData pts;
+  std::vector<double> grad;
+  const PointMap map = gather(mesh, n, gradient, thr, pts, grad);
+  std::vector<double> de, dvrho, dvsigma;
+  t.parameter_derivatives(pts, p, de, dvrho, dvsigma);
+  const double w = xc.weight(term);
+  for (std::size_t i = 0; i < pts.np; ++i) out.energy += w * map.weight[i] * de[i];
+  if (!t.needs_gradient()) dvsigma.assign(pts.np * (ns == 1 ? 1 : 3), 0.0);
+  out.potential = assemble_potential(mesh, map, grad, ns, gradient, dvrho, dvsigma);
+  for (auto& v : out.potential) v *= w;
+  return out;
 }
 
 }  // namespace stillpoint
