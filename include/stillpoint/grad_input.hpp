@@ -19,7 +19,7 @@ struct GradInput {
   double verify_tolerance = 1e-6;
   double verify_floor = 1e-8;
   /// Relative finite-difference step (times max(1, |theta|)).
-  double verify_step = 1e-4;
+  double verify_step = 1e-3;
   std::vector<std::string> warnings;
 };
 

@@ -35,6 +35,11 @@ struct ParameterRef {
   double upper = std::numeric_limits<double>::infinity();
 };
 
+/// Finite-difference steps: `relative` * max(|theta|, 1) for potentials, weights and
+/// geometry (natural scale 1 in atomic units), `relative` * max(|theta|, 0.1) for model
+/// coefficients, which can be small (B88 beta = 0.0042; Richardson extrapolation absorbs the larger relative step).
+Eigen::VectorXd default_fd_steps(const std::vector<ParameterRef>& params, const Eigen::VectorXd& theta, double relative);
+
 /// Current values of the parameters in the systems (the base point of a gradient).
 Eigen::VectorXd parameter_values(const std::vector<SystemSpec>& systems, const std::vector<ParameterRef>& params);
 /// Systems with the parameters set to theta.

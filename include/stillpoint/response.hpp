@@ -27,6 +27,9 @@ struct ResponseOptions {
   int sternheimer_max_iterations = 2000;
   /// Relative residual at which GMRES on (I - K chi0) stops.
   double krylov_tolerance = 1e-12;
+  /// When restarts stop improving the true residual (operator rounding, e.g. from very large
+  /// kernels in the far tail), a residual below this is still accepted; above it is an error.
+  double krylov_floor = 1e-8;
   int krylov_max_iterations = 200;
   /// Occupation differences between states closer than this (hartree) make chi0 ill-posed.
   double degeneracy_tolerance = 1e-7;
@@ -59,8 +62,9 @@ class Response {
   /// NumericalError with the residual history if GMRES does not converge.
   Eigen::VectorXd solve_tangent(const Eigen::VectorXd& b) const;
   Eigen::VectorXd solve_adjoint(const Eigen::VectorXd& b) const;
-  /// GMRES iterations used by the last solve.
+  /// GMRES iterations used by the last solve, and its true relative residual.
   int last_iterations() const;
+  double last_residual() const;
 
  private:
   struct Impl;

@@ -184,6 +184,15 @@ LevelRef find_level(const KsProblem& P, const KsSolution& S, const LossTerm& t) 
 
 }  // namespace
 
+Eigen::VectorXd default_fd_steps(const std::vector<ParameterRef>& params, const Eigen::VectorXd& theta, double relative) {
+  Eigen::VectorXd h(theta.size());
+  for (int i = 0; i < theta.size(); ++i) {
+    const double floor = params[i].kind == ParameterRef::Kind::XcParameter ? 0.1 : 1.0;
+    h(i) = relative * std::max(std::abs(theta(i)), floor);
+  }
+  return h;
+}
+
 Eigen::VectorXd parameter_values(const std::vector<SystemSpec>& systems, const std::vector<ParameterRef>& params) {
   Eigen::VectorXd v(params.size());
   for (std::size_t i = 0; i < params.size(); ++i) {

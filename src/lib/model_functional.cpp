@@ -122,8 +122,16 @@ class ModelTerm final : public XcTerm {
   static double fin(double v) { return std::isfinite(v) ? v : 0.0; }
 
   // Jets for the point's inputs (and parameter `active` as the last variable when >= 0).
+  // Gradient models are screened below a total density of 1e-12 (libxc's PBE correlation
+  // default) and spin densities below kSpinFloor of the total are passed as zero: there GGA
+  // kernels grow like n^-4 and spin-interpolated correlation kernels like (1 - zeta)^(-2/3),
+  // which only adds rounding noise to response solves while the energy they carry is below
+  // 1e-12 hartree.
+  static constexpr double kSpinFloor = 1e-14;
   Jet evaluate(const XcPointData& in, std::size_t i, int nv, int order, int active) const {
     const bool gga = family_->needs_gradient();
+    const double total = in.nspin == 1 ? in.rho[i] : in.rho[2 * i] + in.rho[2 * i + 1];
+    if (gga && total < 1e-12) return Jet(0.0, nv, order);
     std::vector<Jet> par(params_.size());
     for (std::size_t k = 0; k < params_.size(); ++k)
       par[k] = static_cast<int>(k) == active ? Jet::variable(params_[k], nv - 1, nv, order) : Jet(params_[k], nv, order);
@@ -134,12 +142,14 @@ class ModelTerm final : public XcTerm {
       if (gga) s = 0.25 * Jet::variable(in.sigma[i], 1, nv, order);
       return family_->energy(half, half, s, s, s, par, settings_);
     }
-    const Jet nu = Jet::variable(in.rho[2 * i], 0, nv, order), nd = Jet::variable(in.rho[2 * i + 1], 1, nv, order);
+    const bool zero_up = in.rho[2 * i] < kSpinFloor * total, zero_dn = in.rho[2 * i + 1] < kSpinFloor * total;
+    const Jet nu = zero_up ? Jet(0.0, nv, order) : Jet::variable(in.rho[2 * i], 0, nv, order);
+    const Jet nd = zero_dn ? Jet(0.0, nv, order) : Jet::variable(in.rho[2 * i + 1], 1, nv, order);
     Jet suu(0.0, nv, order), sud = suu, sdd = suu;
     if (gga) {
-      suu = Jet::variable(in.sigma[3 * i], 2, nv, order);
-      sud = Jet::variable(in.sigma[3 * i + 1], 3, nv, order);
-      sdd = Jet::variable(in.sigma[3 * i + 2], 4, nv, order);
+      if (!zero_up) suu = Jet::variable(in.sigma[3 * i], 2, nv, order);
+      if (!zero_up && !zero_dn) sud = Jet::variable(in.sigma[3 * i + 1], 3, nv, order);
+      if (!zero_dn) sdd = Jet::variable(in.sigma[3 * i + 2], 4, nv, order);
     }
     return family_->energy(nu, nd, suu, sud, sdd, par, settings_);
   }
