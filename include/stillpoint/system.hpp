@@ -6,6 +6,7 @@
 
 #include "stillpoint/atom_config.hpp"
 #include "stillpoint/external_potential.hpp"
+#include "stillpoint/formula.hpp"
 #include "stillpoint/mesh.hpp"
 
 namespace stillpoint {
@@ -54,6 +55,8 @@ struct SystemSpec {
   std::vector<double> xc_weights;
   /// Parameters of each model xc term (one list per term; an empty list means the defaults).
   std::vector<std::vector<double>> xc_parameters;
+  /// User formulas that "formula:<name>" entries of xc refer to.
+  std::vector<FormulaSpec> formulas;
   /// Line only: extra potential at every mesh node (hartree), added to v_ext; empty = none.
   /// A differentiable "grid potential" parameter family; its size must equal the node count.
   std::vector<double> nodal_potential;

@@ -34,6 +34,8 @@ struct XcDerivatives {
 };
 
 /// Settings that every term needs to know when it is created.
+class ModelFamily;
+
 struct XcSettings {
   /// Points whose total density is below this are dropped (e = v = 0) by every term, so the
   /// discrete functional is one smooth function. 1e-30 converges unoccupied minority-spin LSD
@@ -43,6 +45,8 @@ struct XcSettings {
   double softening = 1.0;
   /// true for the 1D line geometry; 1D libxc functionals are refused on radial atoms.
   bool one_dimensional = false;
+  /// User formulas ("formula:<name>" in xc lists), compiled (formula.hpp).
+  std::vector<std::shared_ptr<const ModelFamily>> formulas;
 };
 
 class XcTerm {

@@ -54,6 +54,7 @@ double& field_ref(SystemSpec& s, const ParameterRef& p) {
         XcSettings xs;
         xs.one_dimensional = s.geometry == Geometry::Line;
         xs.softening = s.line.electron_softening;
+        for (const FormulaSpec& fs : s.formulas) xs.formulas.push_back(compile_formula(fs));
         const XcFunctional f = make_functional({s.xc[p.index]}, xs);
         list = f.term(0).parameters();
       }

@@ -46,6 +46,7 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
   xs.one_dimensional = spec.geometry == Geometry::Line;
   xs.softening = spec.line.electron_softening;
   xs.density_threshold = density_threshold_;
+  for (const FormulaSpec& f : spec.formulas) xs.formulas.push_back(compile_formula(f));
   xc_ = make_functional(spec.xc, xs, spec.xc_parameters);
   if (!spec.xc_weights.empty()) {
     if (spec.xc_weights.size() != xc_.size())

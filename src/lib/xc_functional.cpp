@@ -366,6 +366,20 @@ XcFunctional make_functional(const std::vector<std::string>& names, const XcSett
     const std::vector<double> params = idx < parameters.size() ? parameters[idx] : std::vector<double>{};
     if (nm.rfind("model:", 0) == 0) {
       f.add(make_model_term(nm.substr(6), params, settings), weight);
+    } else if (nm.rfind("formula:", 0) == 0) {
+      const std::string fname = nm.substr(8);
+      std::shared_ptr<const ModelFamily> family;
+      std::vector<std::string> known;
+      for (const auto& fam : settings.formulas) {
+        known.push_back(fam->name());
+        if (fam->name() == fname) family = fam;
+      }
+      if (!family) {
+        const std::string near = nearest_word(fname, known);
+        throw InputError("no formula named '" + fname + "' (define it in a [formula." + fname + "] table)" +
+                         (near.empty() ? "" : "; did you mean '" + near + "'?"));
+      }
+      f.add(make_model_term(family, params, settings), weight);
     } else {
       if (!params.empty()) throw InputError("functional '" + nm + "' has no trainable parameters (only model: terms do)");
       f.add(make_libxc_term(nm, settings), weight);
