@@ -9,6 +9,7 @@
 #include <vector>
 
 #include "stillpoint/eigensolver.hpp"
+#include "stillpoint/gradient.hpp"
 #include "stillpoint/grid_presets.hpp"
 #include "stillpoint/kinetic.hpp"
 #include "stillpoint/reference_check.hpp"
@@ -144,6 +145,119 @@ void eigensolver_report() {
               (cold.values - dense.values).cwiseAbs().maxCoeff());
 }
 
+// Gradient costs for a 1D two-electron system: adjoint gradient over the SCF it differentiates
+// for 1, 10 and grid-many parameters; adjoint against central finite differences at 500 grid
+// parameters; tangent against adjoint per parameter.
+void gradient_report(int nodes) {
+  sp::SystemSpec s = chain(1, nodes);
+  s.line.nuclei = {{2.0, 0.0, 1.0}};
+  s.grid.half_width = 20.0;
+  s.grid.element_size = 2.0 * s.grid.half_width * s.grid.degree / (nodes - 1);
+  sp::ExternalTerm g;
+  g.kind = sp::ExternalTerm::Kind::Gaussian;
+  g.depth = 0.2;
+  g.center = 0.3;
+  g.width = 1.0;
+  s.line.potentials = {g};
+  const sp::KsProblem P0(s);
+  sp::KsSolution ref;
+  {
+    sp::SystemSpec r = s;
+    r.line.potentials[0].depth = 0.3;
+    const sp::KsProblem Pr(r);
+    ref = sp::solve_scf(Pr);
+  }
+  sp::LossTerm d;
+  d.kind = sp::LossTerm::Kind::Density;
+  const Eigen::VectorXd nr = ref.total_density();
+  d.reference.assign(nr.data(), nr.data() + nr.size());
+  const int N = P0.mesh().num_nodes();
+  auto grid_params = [&](int count) {
+    std::vector<sp::ParameterRef> ps;
+    for (int i = 0; i < count; ++i) {
+      sp::ParameterRef r;
+      r.kind = sp::ParameterRef::Kind::GridPotential;
+      r.index = 1 + static_cast<int>(static_cast<long>(i) * (N - 3) / std::max(1, count - 1));
+      r.name = "v" + std::to_string(r.index);
+      ps.push_back(r);
+    }
+    return ps;
+  };
+  auto time_scf = [&] {
+    int reps = 0;
+    const auto t0 = std::chrono::steady_clock::now();
+    while (seconds_since(t0) < 0.5 || reps < 3) {
+      auto sol = sp::solve_scf(P0);
+      benchmark::DoNotOptimize(sol.energy.total);
+      ++reps;
+    }
+    return seconds_since(t0) / reps;
+  };
+  const double t_scf = time_scf();
+  std::printf("\nGradient of a density loss, 1D two-electron atom, %d nodes (chi0 by %s):\n", N,
+              N - 2 <= 200 ? "sum over states" : "Sternheimer");
+  std::printf("  SCF from scratch: %.2f ms\n", 1e3 * t_scf);
+  for (int count : {1, 10, N - 2}) {
+    const auto ps = grid_params(count);
+    sp::GradientProblem G({s}, ps, {d});
+    const Eigen::VectorXd th = G.initial_values();
+    G.evaluate(th);  // warm
+    double tg = 0.0;
+    int reps = 0;
+    const auto t0 = std::chrono::steady_clock::now();
+    while (seconds_since(t0) < 0.5 || reps < 3) {
+      const auto r = G.evaluate(th);
+      tg += r.gradient_seconds;
+      ++reps;
+    }
+    std::printf("  adjoint, %5d parameters: gradient %.2f ms = %.3f x SCF\n", count, 1e3 * tg / reps, tg / reps / t_scf);
+  }
+  {
+    const int count = std::min(500, N - 2);  // distinct nodes only
+    const auto ps = grid_params(count);
+    sp::GradientProblem G({s}, ps, {d});
+    const Eigen::VectorXd th = G.initial_values();
+    const auto t0 = std::chrono::steady_clock::now();
+    const auto r = G.evaluate(th);
+    const double t_adj = seconds_since(t0);
+    sp::ScfOptions o;  // tight enough that FD noise stays below the gradient's size
+    o.potential_tolerance = 1e-11;
+    o.energy_tolerance = 1e-12;
+    o.eigenvalue_tolerance = 1e-11;
+    const auto t1 = std::chrono::steady_clock::now();
+    Eigen::VectorXd steps = Eigen::VectorXd::Constant(th.size(), 1e-4);
+    // Plain central differences (2 SCFs per parameter, warm-started), the cheapest honest FD.
+    Eigen::VectorXd fd(th.size());
+    for (int p = 0; p < th.size(); ++p) {
+      Eigen::VectorXd a = th, b = th;
+      a(p) += steps(p);
+      b(p) -= steps(p);
+      fd(p) = (G.loss(a, &o) - G.loss(b, &o)) / (2e-4);
+    }
+    const double t_fd = seconds_since(t1);
+    std::printf("  %d grid parameters: adjoint (SCF + gradient) %.3f s, central differences %.2f s, ratio FD/adjoint = %.0f\n",
+                count, t_adj, t_fd, t_fd / t_adj);
+    std::printf("    max |adjoint - FD| / max |gradient| = %.1e\n",
+                (r.gradient - fd).cwiseAbs().maxCoeff() / r.gradient.cwiseAbs().maxCoeff());
+  }
+  {
+    // Tangent: one solve per parameter; adjoint: one solve per scalar output. For a Jacobian of
+    // m residuals by p parameters tangent wins when p < m.
+    const auto ps = grid_params(10);
+    sp::GradientOptions tan;
+    tan.mode = sp::GradientOptions::Mode::Tangent;
+    sp::GradientProblem T({s}, ps, {d}, tan), A({s}, ps, {d});
+    const Eigen::VectorXd th = T.initial_values();
+    T.evaluate(th);
+    A.evaluate(th);
+    const auto rt = T.evaluate(th);
+    const auto ra = A.evaluate(th);
+    std::printf("  per linear solve: tangent %.2f ms, adjoint %.2f ms; a Jacobian of m residuals by p parameters costs\n"
+                "    p tangent or m adjoint solves, so tangent overtakes adjoint when p < m (here m = %d density nodes)\n",
+                1e3 * rt.gradient_seconds / rt.linear_solves, 1e3 * ra.gradient_seconds / std::max(1, ra.linear_solves), N);
+  }
+}
+
 }  // namespace
 
 int main(int argc, char** argv) {
@@ -153,5 +267,7 @@ int main(int argc, char** argv) {
   benchmark::Shutdown();
   scaling_report();
   eigensolver_report();
+  gradient_report(481);
+  gradient_report(2401);
   return 0;
 }

@@ -16,12 +16,12 @@ namespace stillpoint {
 
 struct ResponseOptions {
   enum class Chi0Method {
-    Automatic,      ///< sum over states for channels up to `sum_over_states_below` unknowns, else Sternheimer
+    Automatic,      ///< sum over states up to `sum_over_states_below` unknowns (measured slower above), else Sternheimer
     SumOverStates,  ///< all eigenpairs by dense LAPACK; exact for the discretization
     Sternheimer,    ///< projected Sternheimer solves (preconditioned CG) for the unoccupied space
   };
   Chi0Method chi0 = Chi0Method::Automatic;
-  int sum_over_states_below = 1200;
+  int sum_over_states_below = 200;
   /// Relative residual at which the Sternheimer CG solves stop.
   double sternheimer_tolerance = 1e-13;
   int sternheimer_max_iterations = 2000;
