@@ -53,9 +53,10 @@ void compare_with_libxc(const sp::FormulaSpec& f, const std::string& libxc, bool
     for (std::size_t i = 0; i < da.vrho.size(); ++i) EXPECT_NEAR(da.vrho[i], db.vrho[i], 1e-10 * std::abs(db.vrho[i]) + 1e-14);
     for (std::size_t i = 0; i < da.v2rho2.size(); ++i)
       EXPECT_NEAR(da.v2rho2[i], db.v2rho2[i], 1e-9 * std::abs(db.v2rho2[i]) + 1e-12);
-    if (gga)
+    if (gga) {
       for (std::size_t i = 0; i < da.vsigma.size(); ++i)
         EXPECT_NEAR(da.vsigma[i], db.vsigma[i], 1e-9 * std::abs(db.vsigma[i]) + 1e-14);
+    }
   }
 }
 

@@ -1,9 +1,16 @@
 #pragma once
 // Reading input files (TOML) into system specifications. Every key is documented in
 // docs/input.md; unknown keys are errors that name file, line and the nearest valid key.
+//
+// The reader validates everything it can without solving anything: key names and types,
+// element symbols and configurations, electron counts, functional names (through libxc),
+// grid resolution against Z or the softening lengths, nuclei inside the box, potential
+// tables. Every InputError it throws carries the file, the line and column of the offending
+// value (or of the table that lacks a required key) and the dotted key path.
 #include <string>
 #include <vector>
 
+#include "stillpoint/errors.hpp"
 #include "stillpoint/scf.hpp"
 #include "stillpoint/system.hpp"
 
@@ -12,6 +19,9 @@ namespace stillpoint {
 struct SolveInput {
   std::string file;
   std::vector<SystemSpec> systems;
+  /// Where each system's [[system]] table starts (same order as `systems`; key "system[i]").
+  /// Used to place errors found later, for example while discretizing a system.
+  std::vector<SourceLocation> system_locations;
   ScfOptions scf;
   double density_threshold = 1e-30;
 };

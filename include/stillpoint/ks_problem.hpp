@@ -50,7 +50,8 @@ class KsProblem {
   XcFunctional& mutable_xc() { return xc_; }
   const Hartree* hartree() const { return hartree_.get(); }
   double density_threshold() const { return density_threshold_; }
-  void set_density_threshold(double t) { density_threshold_ = t; }
+  /// Rebuilds the functional so libxc's own cut-off follows too.
+  void set_density_threshold(double t);
 
   /// External potential at every node (radial: -Z/r, node r = 0 set to 0; it carries no weight).
   const Eigen::VectorXd& external_potential() const { return v_ext_; }
@@ -70,6 +71,8 @@ class KsProblem {
   std::vector<Eigen::VectorXd> initial_potential() const;
 
  private:
+  void build_xc();
+
   SystemSpec spec_;
   std::shared_ptr<Mesh> mesh_;
   std::vector<Channel> channels_;

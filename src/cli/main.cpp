@@ -3,34 +3,109 @@
 //   exit 1  a check or verification found values outside tolerance
 //   exit 2  unusable input (file, key, value)
 //   exit 3  numerical failure (for example an SCF that did not converge)
+//   exit 4  internal error (a bug in stillpoint)
+//
+// Output files are all-or-nothing per run: `solve` first reads and discretizes every system
+// (so input errors in any system stop the run before any SCF), then solves all of them, and
+// only when every system has converged to finite results writes the files. Each file is
+// written atomically (temporary file + rename), so a reader never sees a partial file.
 #include <CLI/CLI.hpp>
+#include <cmath>
 #include <cstdio>
+#include <filesystem>
 #include <iostream>
 
+#include "commands.hpp"
 #include "stillpoint/atomic_file.hpp"
 #include "stillpoint/errors.hpp"
+#include "stillpoint/grid_presets.hpp"
 #include "stillpoint/input.hpp"
 #include "stillpoint/reference_check.hpp"
 #include "stillpoint/solution_report.hpp"
 
 namespace sp = stillpoint;
+namespace fs = std::filesystem;
 
 // OpenBLAS's own threads only add contention for the small banded problems solved here.
 extern "C" void openblas_set_num_threads(int);
 
 namespace {
 
+// An output directory that cannot work is an input error found before any computation.
+void check_output_dir(const std::string& dir) {
+  if (dir.empty()) return;
+  std::error_code ec;
+  if (fs::exists(dir, ec) && !fs::is_directory(dir, ec))
+    throw sp::InputError("--output " + dir + ": exists and is not a directory");
+}
+
+void check_output_file(const std::string& path, const char* option) {
+  if (path.empty()) return;
+  std::error_code ec;
+  if (fs::is_directory(path, ec))
+    throw sp::InputError(std::string(option) + " " + path + ": is a directory; give a file name");
+}
+
+bool solution_is_finite(const sp::KsSolution& s) {
+  for (const auto& v : s.density)
+    if (!v.allFinite()) return false;
+  for (const auto& v : s.v_s)
+    if (!v.allFinite()) return false;
+  for (const auto& v : s.v_xc)
+    if (!v.allFinite()) return false;
+  if (!s.v_h.allFinite() || !s.v_ext.allFinite()) return false;
+  const sp::EnergyParts& E = s.energy;
+  for (double v : {E.total, E.kinetic, E.external, E.hartree, E.xc, E.nuclear_repulsion, E.band})
+    if (!std::isfinite(v)) return false;
+  for (const auto& lv : s.levels)
+    if (!std::isfinite(lv.energy)) return false;
+  return true;
+}
+
 int run_solve(const std::string& file, const std::string& out_dir, bool verbose) {
+  check_output_dir(out_dir);
   sp::SolveInput in = sp::read_solve_input(file);
   if (verbose) in.scf.verbose = true;
-  for (const auto& spec : in.systems) {
-    sp::KsProblem problem(spec);
-    problem.set_density_threshold(in.density_threshold);
-    const sp::KsSolution sol = sp::solve_scf(problem, in.scf);
-    std::cout << sp::format_solution(problem, sol) << std::flush;
-    if (!out_dir.empty()) {
-      sp::write_solution_files(out_dir, problem, sol);
-      std::cout << "  wrote " << out_dir << "/" << spec.name << "{.json,_density.csv,_potentials.csv}\n";
+  const std::size_t n = in.systems.size();
+
+  // 1. Discretize every system before solving any, so that a bad grid or occupation in the
+  //    last system is reported at once and not after minutes of SCF on the first ones.
+  std::vector<sp::KsProblem> problems;
+  problems.reserve(n);
+  for (std::size_t i = 0; i < n; ++i) {
+    try {
+      problems.emplace_back(in.systems[i]);
+    } catch (const sp::InputError& e) {
+      if (!e.where().file.empty()) throw;
+      throw sp::InputError(in.system_locations[i], "system '" + in.systems[i].name + "': " + e.what());
+    }
+    problems.back().set_density_threshold(in.density_threshold);
+  }
+
+  // 2. Solve them all; print each summary as it is done.
+  std::vector<sp::KsSolution> solutions;
+  solutions.reserve(n);
+  for (std::size_t i = 0; i < n; ++i) {
+    try {
+      solutions.push_back(sp::solve_scf(problems[i], in.scf));
+    } catch (const sp::NumericalError& e) {
+      const sp::SourceLocation& w = in.system_locations[i];
+      throw sp::NumericalError("system '" + in.systems[i].name + "' (" + w.describe() + "): " + e.what() +
+                                   (out_dir.empty() ? "" : "; no output files were written"),
+                               e.details());
+    }
+    if (!solution_is_finite(solutions.back()))
+      throw sp::NumericalError("system '" + in.systems[i].name + "': the converged solution contains NaN or Inf" +
+                               (out_dir.empty() ? "" : "; no output files were written"));
+    std::cout << sp::format_solution(problems[i], solutions[i]) << std::flush;
+  }
+
+  // 3. Write the files only when every system succeeded.
+  if (!out_dir.empty()) {
+    for (std::size_t i = 0; i < n; ++i) {
+      sp::write_solution_files(out_dir, problems[i], solutions[i]);
+      std::cout << "wrote " << (fs::path(out_dir) / in.systems[i].name).string()
+                << "{.json,_density.csv,_potentials.csv}\n";
     }
   }
   return 0;
@@ -38,11 +113,21 @@ int run_solve(const std::string& file, const std::string& out_dir, bool verbose)
 
 int run_check(const std::vector<std::string>& tables, double tolerance, const std::string& report,
               const std::string& junit, const std::string& grid, bool quiet) {
+  check_output_file(report, "--report");
+  check_output_file(junit, "--junit");
+  try {
+    (void)sp::grid_preset(sp::Geometry::Radial, grid);
+  } catch (const sp::InputError& e) {
+    throw sp::InputError(std::string("--grid: ") + e.what());
+  }
+  // Every table is read and validated before the first SCF.
   std::vector<sp::ReferenceRow> rows;
   for (const auto& t : tables) {
     auto r = sp::read_reference_table(t);
     rows.insert(rows.end(), r.begin(), r.end());
   }
+  if (rows.empty())
+    throw sp::InputError(sp::SourceLocation{tables.front(), 0, 0, ""}, "the reference tables hold no values to check");
   sp::CheckOptions opt;
   opt.tolerance = tolerance;
   opt.grid = grid;
@@ -59,7 +144,8 @@ int run_check(const std::vector<std::string>& tables, double tolerance, const st
 int main(int argc, char** argv) {
   openblas_set_num_threads(1);
   CLI::App app{"stillpoint: Kohn-Sham solutions, exact gradients and fits for density-functional development.\n"
-               "All quantities in hartree atomic units (energies in hartree, lengths in bohr)."};
+               "All quantities in hartree atomic units (energies in hartree, lengths in bohr).\n"
+               "Exit status: 0 ok, 1 values outside tolerance, 2 input error, 3 numerical failure, 4 internal error."};
   app.require_subcommand(1);
   app.set_version_flag("--version", "stillpoint 0.1.0");
 
@@ -67,7 +153,9 @@ int main(int argc, char** argv) {
   bool verbose = false;
   auto* solve = app.add_subcommand("solve", "Self-consistent Kohn-Sham solution of the systems in an input file");
   solve->add_option("input", solve_file, "input file (TOML), see docs/input.md")->required()->check(CLI::ExistingFile);
-  solve->add_option("--output,-o", out_dir, "write NAME.json and CSV files of density and potentials into this directory");
+  solve->add_option("--output,-o", out_dir,
+                    "write NAME.json, NAME_density.csv and NAME_potentials.csv for every system into this directory "
+                    "(only when all systems succeed)");
   solve->add_flag("--verbose,-v", verbose, "print every SCF iteration");
 
   std::vector<std::string> tables;
@@ -83,6 +171,21 @@ int main(int argc, char** argv) {
   check->add_option("--grid", grid, "grid preset for every atom (coarse, default, tight)");
   check->add_flag("--quiet,-q", quiet, "no progress lines");
 
+  GradCommandOptions gopt;
+  auto* grad = app.add_subcommand("grad", "Loss and exact gradient by implicit differentiation of the converged SCF");
+  grad->add_option("input", gopt.input, "input file (TOML) with [[system]], [[parameter]] and [[loss]], see docs/input.md")
+      ->required()
+      ->check(CLI::ExistingFile);
+  grad->add_option("--mode", gopt.mode, "adjoint (one solve per system) or tangent (one solve per parameter)")
+      ->check(CLI::IsMember({"adjoint", "tangent"}));
+  grad->add_flag("--verify", gopt.verify,
+                 "compare every component with central finite differences of the whole converged program; exit 1 on "
+                 "disagreement");
+  grad->add_option("--verify-tolerance", gopt.verify_tolerance, "relative tolerance of --verify (default 1e-6)")
+      ->check(CLI::PositiveNumber);
+  grad->add_option("--output,-o", gopt.output, "write grad.json (and CSV gradient fields for grid potentials) here");
+  grad->add_flag("--quiet,-q", gopt.quiet, "no progress lines");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -92,6 +195,10 @@ int main(int argc, char** argv) {
   try {
     if (*solve) return run_solve(solve_file, out_dir, verbose);
     if (*check) return run_check(tables, tolerance, report, junit, grid, quiet);
+    if (*grad) {
+      check_output_dir(gopt.output);
+      return run_grad(gopt);
+    }
   } catch (const sp::InputError& e) {
     std::cerr << "stillpoint: input error: " << e.what() << "\n";
     return 2;

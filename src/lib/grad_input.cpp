@@ -10,6 +10,7 @@
 #include "input_detail.hpp"
 #include "stillpoint/errors.hpp"
 #include "stillpoint/external_potential.hpp"
+#include "stillpoint/formula.hpp"
 
 namespace stillpoint {
 
@@ -83,17 +84,19 @@ void read_parameters(GradInput& g, const std::string& file, const toml::node& no
       all_fields = {"charge", "position", "softening"};
     } else if (kind == "grid_potential") {
       base.kind = ParameterRef::Kind::GridPotential;
+    } else if (kind == "xc_parameter") {
+      base.kind = ParameterRef::Kind::XcParameter;
     } else {
       const toml::node* kn = t->get("kind");
       throw InputError(kn ? location(file, *kn, path + ".kind") : location(file, *t, path + ".kind"),
-                       "kind must be xc_weight, gaussian, harmonic, nucleus or grid_potential");
+                       "kind must be xc_weight, xc_parameter, gaussian, harmonic, nucleus or grid_potential");
     }
     if (const toml::node* s = t->get("system")) base.system = system_index(g, file, *s, path + ".system");
     const std::string sys_name = base.system >= 0 ? g.base.systems[base.system].name : "all";
     base.lower = number(file, *t, "lower", path, base.lower);
     base.upper = number(file, *t, "upper", path, base.upper);
     const SystemSpec& ref = g.base.systems[base.system >= 0 ? base.system : 0];
-    if (base.kind == ParameterRef::Kind::XcWeight) {
+    if (base.kind == ParameterRef::Kind::XcWeight || base.kind == ParameterRef::Kind::XcParameter) {
       const toml::node* tn = t->get("term");
       if (!tn) throw InputError(location(file, *t, path + ".term"), "xc_weight needs term = index or functional name");
       if (auto idx = tn->value<int64_t>()) {
@@ -107,8 +110,53 @@ void read_parameters(GradInput& g, const std::string& file, const toml::node& no
       }
       if (base.index < 0 || base.index >= static_cast<int>(ref.xc.size()))
         throw InputError(location(file, *tn, path + ".term"), "no such xc term");
-      base.name = string(file, *t, "name", path, "w_" + ref.xc[base.index]);
-      g.parameters.push_back(base);
+      if (base.kind == ParameterRef::Kind::XcWeight) {
+        base.name = string(file, *t, "name", path, "w_" + ref.xc[base.index]);
+        g.parameters.push_back(base);
+        continue;
+      }
+      // Model or formula parameters, by name.
+      SystemSpec probe = ref;
+      ParameterRef first = base;
+      first.sub = 0;
+      first.name = ref.xc[base.index];
+      try {
+        parameter_values({probe}, {first});
+      } catch (const InputError& e) {
+        throw InputError(location(file, *tn, path + ".term"), e.what());
+      }
+      XcSettings xs;
+      xs.one_dimensional = ref.geometry == Geometry::Line;
+      xs.softening = ref.line.electron_softening;
+      for (const FormulaSpec& fs : ref.formulas) xs.formulas.push_back(compile_formula(fs));
+      const XcFunctional f = make_functional({ref.xc[base.index]}, xs,
+                                             ref.xc_parameters.size() > static_cast<std::size_t>(base.index)
+                                                 ? std::vector<std::vector<double>>{ref.xc_parameters[base.index]}
+                                                 : std::vector<std::vector<double>>{});
+      const auto pnames = f.term(0).parameter_names();
+      std::vector<std::string> fields = pnames;
+      if (const toml::node* fn = t->get("fields")) {
+        fields.clear();
+        const toml::array* fa = fn->as_array();
+        if (!fa) throw InputError(location(file, *fn, path + ".fields"), "expected a list of parameter names");
+        for (const auto& fe : *fa) {
+          auto fs = fe.value<std::string>();
+          if (!fs || std::find(pnames.begin(), pnames.end(), *fs) == pnames.end()) {
+            const std::string near = fs ? nearest_word(*fs, pnames) : std::string();
+            throw InputError(location(file, fe, path + ".fields"),
+                             "not a parameter of " + ref.xc[base.index] + (near.empty() ? "" : "; did you mean '" + near + "'?"));
+          }
+          fields.push_back(*fs);
+        }
+      }
+      const std::string prefix = string(file, *t, "name", path, ref.xc[base.index]);
+      for (const auto& fname : fields) {
+        ParameterRef p = base;
+        p.sub = static_cast<int>(std::find(pnames.begin(), pnames.end(), fname) - pnames.begin());
+        p.field = fname;
+        p.name = prefix + "." + fname;
+        g.parameters.push_back(p);
+      }
       continue;
     }
     if (ref.geometry != Geometry::Line)

@@ -42,18 +42,8 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
   if (!(electrons_ > 0))
     throw InputError("system '" + spec.name + "' has " + std::to_string(electrons_) +
                      " electrons: the charge must be smaller than the total nuclear charge");
-  XcSettings xs;
-  xs.one_dimensional = spec.geometry == Geometry::Line;
-  xs.softening = spec.line.electron_softening;
-  xs.density_threshold = density_threshold_;
-  for (const FormulaSpec& f : spec.formulas) xs.formulas.push_back(compile_formula(f));
-  xc_ = make_functional(spec.xc, xs, spec.xc_parameters);
-  if (!spec.xc_weights.empty()) {
-    if (spec.xc_weights.size() != xc_.size())
-      throw InputError("xc_weights has " + std::to_string(spec.xc_weights.size()) + " entries for " +
-                       std::to_string(xc_.size()) + " functional terms");
-    for (std::size_t i = 0; i < xc_.size(); ++i) xc_.set_weight(i, xc_.weight(i) * spec.xc_weights[i]);
-  }
+  density_threshold_ = spec.density_threshold;
+  build_xc();
 
   if (spec.geometry == Geometry::Radial) {
     const int Z = spec.atom.Z;
@@ -200,6 +190,27 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
       throw InputError("the grid has only " + std::to_string(m.num_unknowns()) + " unknowns for " +
                        std::to_string(c.states) + " states (occupations " + describe_occupations(c.occupations) +
                        "): use a larger grid");
+}
+
+void KsProblem::build_xc() {
+  XcSettings xs;
+  xs.one_dimensional = spec_.geometry == Geometry::Line;
+  xs.softening = spec_.line.electron_softening;
+  xs.density_threshold = density_threshold_;
+  for (const FormulaSpec& f : spec_.formulas) xs.formulas.push_back(compile_formula(f));
+  xc_ = make_functional(spec_.xc, xs, spec_.xc_parameters);
+  if (!spec_.xc_weights.empty()) {
+    if (spec_.xc_weights.size() != xc_.size())
+      throw InputError("xc_weights has " + std::to_string(spec_.xc_weights.size()) + " entries for " +
+                       std::to_string(xc_.size()) + " functional terms");
+    for (std::size_t i = 0; i < xc_.size(); ++i) xc_.set_weight(i, xc_.weight(i) * spec_.xc_weights[i]);
+  }
+}
+
+void KsProblem::set_density_threshold(double t) {
+  density_threshold_ = t;
+  spec_.density_threshold = t;
+  build_xc();  // libxc's own cut-off must follow, not only the mesh screening
 }
 
 KsProblem::~KsProblem() = default;

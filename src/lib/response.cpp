@@ -264,7 +264,7 @@ Eigen::VectorXd Response::Impl::gmres(const Eigen::VectorXd& b, bool adjoint, co
   const double bnorm = std::sqrt(R.dot(b, b));
   last_iterations = 0;
   if (bnorm == 0.0) return x;
-  std::vector<std::string> history;
+  std::vector<std::string> history{"GMRES residual history:"};
   int total = 0;
   double previous_true = std::numeric_limits<double>::infinity();
   for (int restart = 0; total < opt.krylov_max_iterations; ++restart) {

@@ -114,7 +114,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       step.eigenvalue_change = std::numeric_limits<double>::infinity();
     }
     if (!std::isfinite(step.energy) || !std::isfinite(step.residual)) {
-      std::vector<std::string> lines;
+      std::vector<std::string> lines{"SCF residual history:"};
       for (const auto& h : history) lines.push_back(format_step(h));
       throw NumericalError("SCF produced a non-finite energy or residual at iteration " + std::to_string(it), lines);
     }
@@ -188,12 +188,19 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     }
     v_in = unstack(next, ns);
   }
-  std::vector<std::string> lines;
+  std::vector<std::string> lines{"SCF residual history:"};
   for (const auto& h : history) lines.push_back(format_step(h));
   std::ostringstream msg;
-  msg << "SCF did not converge in " << opt.max_iterations << " iterations (last residual "
-      << (history.empty() ? 0.0 : history.back().residual) << " Ha, tolerance " << opt.potential_tolerance
-      << "); try more iterations, a smaller mixing or a different grid";
+  const ScfStep& last = history.back();
+  const double de = history.size() > 1 ? std::abs(last.energy - history[history.size() - 2].energy) : 0.0;
+  msg << "SCF did not converge in " << opt.max_iterations << " iterations (";
+  if (last.residual >= opt.potential_tolerance)
+    msg << "potential residual " << last.residual << " Ha > " << opt.potential_tolerance;
+  else if (de >= opt.energy_tolerance)
+    msg << "energy change " << de << " Ha > " << opt.energy_tolerance;
+  else
+    msg << "eigenvalue change " << last.eigenvalue_change << " Ha > " << opt.eigenvalue_tolerance;
+  msg << "); try more iterations, a smaller mixing, looser tolerances or a different grid";
   throw NumericalError(msg.str(), lines);
 }
 

@@ -1,0 +1,105 @@
+// `stillpoint grad` end to end: verification against central finite differences of the whole
+// converged program (design note §10), tangent and adjoint agreement, outputs and bad input.
+#include <gtest/gtest.h>
+
+#include <nlohmann/json.hpp>
+
+#include "cli_support.hpp"
+
+using clitest::Scratch;
+
+namespace {
+
+const char* kSystem = R"(
+[scf]
+potential_tolerance = 1e-11
+
+[[system]]
+name = "A"
+kind = "line"
+xc = ["lda_x_1d_soft", "model:rational_c_1d"]
+grid = { preset = "default", half_width = 16.0 }
+[[system.nucleus]]
+charge = 2.0
+position = 0.0
+softening = 1.0
+[[system.potential]]
+kind = "harmonic"
+omega = 0.1
+center = 0.3
+)";
+
+}  // namespace
+
+TEST(CliGrad, VerifyPassesAndModesAgree) {
+  Scratch s;
+  const std::string body = std::string(kSystem) + R"(
+[[parameter]]
+kind = "xc_weight"
+term = 0
+[[parameter]]
+kind = "xc_parameter"
+term = "model:rational_c_1d"
+fields = ["a1", "b2"]
+[[parameter]]
+kind = "harmonic"
+index = 0
+[[loss]]
+kind = "eigenvalue"
+state = "homo"
+target = -0.8
+[[loss]]
+kind = "energy"
+)";
+  s.write("g.toml", body);
+  const auto a = s.cli("grad g.toml --verify --output outa");
+  ASSERT_EQ(a.rc, 0) << a.out << a.err;
+  EXPECT_NE(a.out.find("verify: PASS"), std::string::npos) << a.out;
+  const auto t = s.cli("grad g.toml --mode tangent --output outt");
+  ASSERT_EQ(t.rc, 0) << t.err;
+  const auto ja = nlohmann::json::parse(s.read("outa/grad.json")), jt = nlohmann::json::parse(s.read("outt/grad.json"));
+  EXPECT_EQ(ja["units"]["energy"], "hartree");
+  ASSERT_EQ(ja["parameters"].size(), 5u);  // weight, a1, b2, omega, center
+  for (std::size_t i = 0; i < ja["parameters"].size(); ++i) {
+    const double ga = ja["parameters"][i]["gradient"], gt = jt["parameters"][i]["gradient"];
+    EXPECT_NEAR(ga, gt, 1e-10 * std::max(1e-2, std::abs(ga))) << ja["parameters"][i]["name"];
+    const double fd = ja["parameters"][i]["finite_difference"];
+    EXPECT_NEAR(ga, fd, 1e-6 * std::max(1e-3, std::abs(fd)));
+  }
+}
+
+TEST(CliGrad, GridPotentialWritesGradientField) {
+  Scratch s;
+  s.write("ref.csv", "x,n\n-16,0\n-1,0.4\n0,0.9\n1,0.4\n16,0\n");
+  s.write("g.toml", std::string(kSystem) + R"(
+[[parameter]]
+kind = "grid_potential"
+[[loss]]
+kind = "density"
+reference = "ref.csv"
+)");
+  const auto r = s.cli("grad g.toml --output out");
+  ASSERT_EQ(r.rc, 0) << r.err;
+  const std::string csv = s.read("out/A_potential_gradient.csv");
+  EXPECT_NE(csv.find("x_bohr,dloss_dv_per_hartree"), std::string::npos);
+  EXPECT_GT(std::count(csv.begin(), csv.end(), '\n'), 200);
+}
+
+TEST(CliGrad, BadInputIsReportedWithLineAndKey) {
+  Scratch s;
+  s.write("a.toml", std::string(kSystem) + "[[parameter]]\nkind = \"gausian\"\n[[loss]]\nkind = \"energy\"\n");
+  auto r = s.cli("grad a.toml --output out");
+  EXPECT_EQ(r.rc, 2);
+  EXPECT_NE(r.err.find("a.toml:"), std::string::npos) << r.err;
+  EXPECT_NE(r.err.find("parameter[0].kind"), std::string::npos) << r.err;
+  EXPECT_TRUE(s.absent_or_empty("out"));
+  s.write("b.toml", std::string(kSystem) +
+                        "[[parameter]]\nkind = \"xc_weight\"\nterm = 0\n[[loss]]\nkind = \"energy_difference\"\nsystem = \"A\"\nminus = \"B\"\n");
+  r = s.cli("grad b.toml");
+  EXPECT_EQ(r.rc, 2);
+  EXPECT_NE(r.err.find("no system named 'B'"), std::string::npos) << r.err;
+  s.write("c.toml", std::string(kSystem) + "[[parameter]]\nkind = \"xc_parameter\"\nterm = \"model:rational_c_1d\"\nfields = [\"a9\"]\n[[loss]]\nkind = \"energy\"\n");
+  r = s.cli("grad c.toml");
+  EXPECT_EQ(r.rc, 2);
+  EXPECT_NE(r.err.find("not a parameter"), std::string::npos) << r.err;
+}
