@@ -25,6 +25,8 @@ struct LineSystem {
   /// Electron–electron interaction 1/sqrt(u^2 + a^2); also passed to the 1D libxc functionals.
   double electron_softening = 1.0;
   /// false: non-interacting electrons (no Hartree term, and no exchange-correlation unless given).
+  /// Also honoured for radial atoms (used by Kohn–Sham inversion), though input files set it
+  /// only for line systems.
   bool interacting = true;
   /// Softening of the nucleus–nucleus repulsion Z_i Z_j / sqrt(d^2 + b^2); NaN means
   /// "same as electron_softening" so all charges interact by one softened law.

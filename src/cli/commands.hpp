@@ -1,6 +1,7 @@
 #pragma once
-// Subcommands implemented outside main.cpp.
+// Subcommands implemented outside main.cpp, one file each (src/cli/<name>_command.cpp).
 #include <string>
+#include <vector>
 
 struct GradCommandOptions {
   std::string input;
@@ -10,5 +11,27 @@ struct GradCommandOptions {
   double verify_tolerance = 0.0;  ///< 0: from the input file
   bool quiet = false;
 };
-
 int run_grad(const GradCommandOptions& options);
+
+struct ExactCommandOptions {
+  std::string input;
+  std::string output;
+  bool quiet = false;
+};
+int run_exact(const ExactCommandOptions& options);
+
+struct InvertCommandOptions {
+  std::string input;
+  std::string output;
+  bool quiet = false;
+};
+int run_invert(const InvertCommandOptions& options);
+
+struct FitCommandOptions {
+  std::string input;
+  std::string output;
+  bool resume = false;
+  bool quiet = false;
+  int threads = 0;  ///< 0: from the input file or hardware
+};
+int run_fit(const FitCommandOptions& options);

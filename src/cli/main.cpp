@@ -186,6 +186,26 @@ int main(int argc, char** argv) {
   grad->add_option("--output,-o", gopt.output, "write grad.json (and CSV gradient fields for grid potentials) here");
   grad->add_flag("--quiet,-q", gopt.quiet, "no progress lines");
 
+  ExactCommandOptions eopt;
+  auto* exact = app.add_subcommand("exact", "Exact one- and two-electron 1D references (energies, densities, exact v_s)");
+  exact->add_option("input", eopt.input, "input file (TOML), see docs/exact.md")->required()->check(CLI::ExistingFile);
+  exact->add_option("--output,-o", eopt.output, "write JSON and CSV results (batch mode: a folder with a manifest) here");
+  exact->add_flag("--quiet,-q", eopt.quiet, "no progress lines");
+
+  InvertCommandOptions iopt;
+  auto* invert = app.add_subcommand("invert", "Kohn-Sham inversion: the v_s and v_xc behind a given density");
+  invert->add_option("input", iopt.input, "input file (TOML), see docs/invert.md")->required()->check(CLI::ExistingFile);
+  invert->add_option("--output,-o", iopt.output, "write JSON, CSV and plots here");
+  invert->add_flag("--quiet,-q", iopt.quiet, "no progress lines");
+
+  FitCommandOptions fopt;
+  auto* fit = app.add_subcommand("fit", "Fit model functionals or potentials to reference data");
+  fit->add_option("input", fopt.input, "workflow file (TOML), see docs/fit.md")->required()->check(CLI::ExistingFile);
+  fit->add_option("--output,-o", fopt.output, "write the report, fitted model, tables and plots here");
+  fit->add_flag("--resume", fopt.resume, "continue from the checkpoint in the output directory");
+  fit->add_option("--threads", fopt.threads, "systems evaluated in parallel (default: from the workflow file)");
+  fit->add_flag("--quiet,-q", fopt.quiet, "no progress lines");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -198,6 +218,18 @@ int main(int argc, char** argv) {
     if (*grad) {
       check_output_dir(gopt.output);
       return run_grad(gopt);
+    }
+    if (*exact) {
+      check_output_dir(eopt.output);
+      return run_exact(eopt);
+    }
+    if (*invert) {
+      check_output_dir(iopt.output);
+      return run_invert(iopt);
+    }
+    if (*fit) {
+      check_output_dir(fopt.output);
+      return run_fit(fopt);
     }
   } catch (const sp::InputError& e) {
     std::cerr << "stillpoint: input error: " << e.what() << "\n";

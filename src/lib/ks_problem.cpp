@@ -92,7 +92,9 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
     }
     v_ext_ = Eigen::VectorXd::Zero(mesh_->num_nodes());
     for (int k = 1; k < mesh_->num_nodes(); ++k) v_ext_(k) = -Z / mesh_->x()(k);
-    hartree_ = std::make_unique<Hartree>(*mesh_, 0.0);
+    // `interacting = false` (SystemSpec::line.interacting, used by both geometries) drops the
+    // Hartree term: the non-interacting problems of Kohn–Sham inversion.
+    if (spec.line.interacting) hartree_ = std::make_unique<Hartree>(*mesh_, 0.0);
   } else {
     const LineSystem& ls = spec.line;
     const double L = spec.grid.half_width;
