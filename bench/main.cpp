@@ -178,7 +178,7 @@ void gradient_report(int nodes) {
       sp::ParameterRef r;
       r.kind = sp::ParameterRef::Kind::GridPotential;
       r.index = 1 + static_cast<int>(static_cast<long>(i) * (N - 3) / std::max(1, count - 1));
-      r.name = "v" + std::to_string(r.index);
+      r.name = std::string("v").append(std::to_string(r.index));  // append: GCC 12 -Wrestrict false positive
       ps.push_back(r);
     }
     return ps;
