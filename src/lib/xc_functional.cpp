@@ -258,7 +258,9 @@ class LibxcTerm final : public XcTerm {
     for (std::size_t i = 0; i < np; ++i) {
       const double tot = rho[2 * i] + rho[2 * i + 1];
       out.e[i] += w * finite(b.zk[i] * tot);
-      for (int s = 0; s < 2; ++s) out.vrho[2 * i + s] += w * (zero_spin[2 * i + s] ? 0.0 : finite(b.vrho[2 * i + s]));
+      // The potential of a vanishing spin is libxc's smooth fully polarized limit (it is what an
+      // empty minority level feels in the tail); only second derivatives are masked below.
+      for (int s = 0; s < 2; ++s) out.vrho[2 * i + s] += w * finite(b.vrho[2 * i + s]);
       if (gga())
         for (int k = 0; k < 3; ++k) out.vsigma[3 * i + k] += w * finite(b.vsigma[3 * i + k]);
       if (order >= 2) {
