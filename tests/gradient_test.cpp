@@ -315,3 +315,13 @@ TEST(ImplicitGradient, AtomB88AndSeriesParameters) {
   expect_gradients_agree({s}, {model_param(0, 0, "beta"), model_param(1, 1, "c1"), model_param(1, 2, "c2")}, all_outputs(s),
                          sp::ResponseOptions::Chi0Method::SumOverStates, "O B88/series");
 }
+
+// The external potential at grid nodes of a radial atom (many-parameter family), both spins.
+TEST(ImplicitGradient, AtomGridPotential) {
+  for (bool pol : {false, true}) {
+    const auto s = atom(pol ? 7 : 10, pol, !pol);
+    std::vector<sp::ParameterRef> ps;
+    for (int k : {20, 90, 160, 200}) ps.push_back(param(sp::ParameterRef::Kind::GridPotential, k, "", ("v" + std::to_string(k)).c_str()));
+    expect_gradients_agree({s}, ps, all_outputs(s), sp::ResponseOptions::Chi0Method::Automatic, pol ? "N grid" : "Ne grid");
+  }
+}

@@ -6,6 +6,7 @@
 // Energies use the stationarity shortcut dE/dtheta = dE/dtheta|_n (no solve).
 #include <Eigen/Dense>
 #include <limits>
+#include <memory>
 #include <optional>
 #include <string>
 #include <vector>
@@ -37,7 +38,8 @@ struct ParameterRef {
 
 /// Finite-difference steps: `relative` * max(|theta|, 1) for potentials, weights and
 /// geometry (natural scale 1 in atomic units), `relative` * max(|theta|, 0.1) for model
-/// coefficients, which can be small (B88 beta = 0.0042; Richardson extrapolation absorbs the larger relative step).
+/// coefficients, which can be small (B88 beta = 0.0042; Richardson extrapolation absorbs the larger relative step),
+/// and 50 * `relative` for single-node grid potentials.
 Eigen::VectorXd default_fd_steps(const std::vector<ParameterRef>& params, const Eigen::VectorXd& theta, double relative);
 
 /// Current values of the parameters in the systems (the base point of a gradient).
@@ -69,12 +71,35 @@ struct GradientOptions {
   ScfOptions scf;
   ResponseOptions response;
   double density_threshold = 1e-30;
+  /// Systems solved and differentiated concurrently (std::thread). Every system is computed
+  /// the same way whatever the count and sums are taken in system order, so results are
+  /// bitwise identical for any thread count.
+  int threads = 1;
 };
 
 struct GradientResult {
   double loss = 0.0;
   Eigen::VectorXd gradient;
   std::vector<double> term_values;  ///< value of every loss term
+  /// The quantity q of every term: total energy, energy difference or eigenvalue (hartree),
+  /// or for a density term the weighted distance sum_k W_k r_k (n_k - n_ref,k)^2.
+  std::vector<double> term_quantities;
+  int linear_solves = 0;
+  int krylov_iterations = 0;
+  double scf_seconds = 0.0;
+  double gradient_seconds = 0.0;
+};
+
+/// The loss as a residual vector, L = sum_i r_i^2 (every term must be a squared error):
+///   energy, energy difference, eigenvalue:  r = sqrt(weight) (q - target)
+///   density:  one row per node with W_k r_k > 0,  r_k = sqrt(weight W_k r_k) (n_k - n_ref,k)
+/// The Jacobian comes from tangent solves: one per parameter and per system with density or
+/// eigenvalue rows gives the columns of all its rows; energies use stationarity.
+struct ResidualResult {
+  Eigen::VectorXd residuals;
+  Eigen::MatrixXd jacobian;  ///< rows x parameters (empty unless requested)
+  double loss = 0.0;
+  std::vector<double> term_values, term_quantities;
   int linear_solves = 0;
   int krylov_iterations = 0;
   double scf_seconds = 0.0;
@@ -82,6 +107,9 @@ struct GradientResult {
 };
 
 /// A set of systems, parameters and loss terms, differentiated at any parameter point.
+/// Only systems that some loss term refers to are solved. Every solved system keeps its last
+/// converged solution and starts the next SCF from it; when any system fails, all of them
+/// keep the state they had before the call (a rejected point leaves no trace).
 class GradientProblem {
  public:
   GradientProblem(std::vector<SystemSpec> systems, std::vector<ParameterRef> params, std::vector<LossTerm> loss,
@@ -99,12 +127,36 @@ class GradientProblem {
   Eigen::VectorXd finite_difference_gradient(const Eigen::VectorXd& theta, const Eigen::VectorXd& steps,
                                              const ScfOptions& tight);
 
+  /// True when every term is a squared error (has a target, or is a density distance).
+  bool residual_form() const;
+  /// Number of residual rows, and the loss term each row belongs to.
+  int num_residuals() const { return static_cast<int>(row_term_.size()); }
+  const std::vector<int>& residual_terms() const { return row_term_; }
+  /// Residuals (and their Jacobian) at theta. Throws InputError unless residual_form().
+  ResidualResult residuals(const Eigen::VectorXd& theta, bool with_jacobian);
+
+  /// Systems some loss term refers to (the ones that are solved), ascending.
+  const std::vector<int>& active_systems() const { return active_; }
+  const std::vector<LossTerm>& loss_terms() const { return loss_; }
+  void set_threads(int threads) { options_.threads = threads < 1 ? 1 : threads; }
+  /// Last converged solution per system (empty for inactive or not yet solved systems).
+  const std::vector<KsSolution>& solutions() const { return warm_; }
+  /// Replaces the warm-start states (e.g. from a checkpoint); only v_s and warm are used.
+  void set_solutions(std::vector<KsSolution> solutions);
+
  private:
+  struct Cache;
+  std::shared_ptr<const Cache> solve(const Eigen::VectorXd& theta, const ScfOptions* scf);
+
   std::vector<SystemSpec> systems_;
   std::vector<ParameterRef> params_;
   std::vector<LossTerm> loss_;
   GradientOptions options_;
+  std::vector<int> active_;
+  std::vector<int> row_term_;     // residual row -> loss term
+  std::vector<int> row_node_;     // residual row -> mesh node (density rows), else -1
   std::vector<KsSolution> warm_;  // last converged solution per system, for warm starts
+  std::shared_ptr<const Cache> cache_;  // the solved systems at the last theta (default SCF options)
 };
 
 }  // namespace stillpoint

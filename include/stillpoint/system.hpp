@@ -61,7 +61,7 @@ struct SystemSpec {
   std::vector<FormulaSpec> formulas;
   /// Points whose total density is below this are dropped by every xc term (see XcSettings).
   double density_threshold = 1e-30;
-  /// Line only: extra potential at every mesh node (hartree), added to v_ext; empty = none.
+  /// Extra potential at every mesh node (hartree), added to v_ext; empty = none.
   /// A differentiable "grid potential" parameter family; its size must equal the node count.
   std::vector<double> nodal_potential;
   MeshSpec grid;

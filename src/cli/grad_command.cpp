@@ -107,10 +107,12 @@ int run_grad(const GradCommandOptions& o) {
     std::vector<std::pair<std::string, std::string>> files;
     for (const auto& [sys, ps] : grid) {
       const sp::SystemSpec& s = in.base.systems[sys];
-      const sp::Mesh mesh = sp::Mesh::line(s.grid);
+      const bool radial = s.geometry == sp::Geometry::Radial;
+      const sp::Mesh mesh = radial ? sp::Mesh::radial(s.grid, s.atom.Z) : sp::Mesh::line(s.grid);
       std::ostringstream csv;
-      csv << "# d(loss)/d(v_ext at node) for system " << s.name << "; x in bohr, gradient in loss units per hartree\n";
-      csv << "x_bohr,dloss_dv_per_hartree,quadrature_weight\n";
+      csv << "# d(loss)/d(v_ext at node) for system " << s.name << "; " << (radial ? "r" : "x")
+          << " in bohr, gradient in loss units per hartree\n";
+      csv << (radial ? "r_bohr" : "x_bohr") << ",dloss_dv_per_hartree,quadrature_weight\n";
       for (int p : ps) {
         const int k = in.parameters[p].index;
         std::snprintf(buf, sizeof buf, "%.12e,%.12e,%.12e\n", mesh.x()(k), r.gradient(p), mesh.density_weight()(k));

@@ -7,6 +7,7 @@
 #include <fstream>
 #include <sstream>
 
+#include "grad_input_detail.hpp"
 #include "input_detail.hpp"
 #include "stillpoint/errors.hpp"
 #include "stillpoint/external_potential.hpp"
@@ -58,7 +59,14 @@ std::string string(const std::string& file, const toml::table& t, const std::str
   return *v;
 }
 
-void read_parameters(GradInput& g, const std::string& file, const toml::node& node) {
+std::vector<std::string> with(std::vector<std::string> a, const std::vector<std::string>& b) {
+  a.insert(a.end(), b.begin(), b.end());
+  return a;
+}
+
+void read_parameters(detail::GradParsed& parsed, const std::string& file, const toml::node& node,
+                     const detail::GradReadExtras& extras) {
+  GradInput& g = parsed.input;
   const toml::array* arr = node.as_array();
   if (!arr) throw InputError(location(file, node, "parameter"), "use [[parameter]] tables");
   int i = 0;
@@ -66,7 +74,17 @@ void read_parameters(GradInput& g, const std::string& file, const toml::node& no
     const std::string path = "parameter[" + std::to_string(i++) + "]";
     const toml::table* t = e.as_table();
     if (!t) throw InputError(location(file, e, path), "expected a table");
-    check_keys(file, *t, path, {"kind", "system", "term", "index", "fields", "name", "lower", "upper"});
+    // Parameters of this block, whichever branch below adds them.
+    struct BlockMark {
+      detail::GradParsed& p;
+      const toml::table* t;
+      std::size_t before;
+      ~BlockMark() {
+        p.parameter_blocks.push_back(t);
+        p.block_of.resize(p.input.parameters.size(), static_cast<int>(p.parameter_blocks.size()) - 1);
+      }
+    } mark{parsed, t, g.parameters.size()};
+    check_keys(file, *t, path, with({"kind", "system", "term", "index", "fields", "name", "lower", "upper"}, extras.parameter_keys));
     ParameterRef base;
     const std::string kind = string(file, *t, "kind", path, "");
     std::vector<std::string> all_fields;
@@ -159,12 +177,10 @@ void read_parameters(GradInput& g, const std::string& file, const toml::node& no
       }
       continue;
     }
-    if (ref.geometry != Geometry::Line)
-      throw InputError(location(file, *t, path + ".kind"), "external-potential parameters need line systems");
     if (base.kind == ParameterRef::Kind::GridPotential) {
       if (base.system < 0 && g.base.systems.size() > 1)
         throw InputError(location(file, *t, path + ".system"), "grid_potential needs system = \"name\"");
-      const Mesh mesh = Mesh::line(ref.grid);
+      const Mesh mesh = ref.geometry == Geometry::Line ? Mesh::line(ref.grid) : Mesh::radial(ref.grid, ref.atom.Z);
       const std::string prefix = string(file, *t, "name", path, "v");
       for (int k = 1; k < mesh.num_nodes() - 1; ++k) {
         ParameterRef p = base;
@@ -176,6 +192,8 @@ void read_parameters(GradInput& g, const std::string& file, const toml::node& no
       }
       continue;
     }
+    if (ref.geometry != Geometry::Line)
+      throw InputError(location(file, *t, path + ".kind"), "gaussian, harmonic and nucleus parameters need line systems");
     const toml::node* in = t->get("index");
     base.index = in ? static_cast<int>(in->value<int64_t>().value_or(-1)) : 0;
     std::vector<std::string> fields = all_fields;
@@ -206,27 +224,124 @@ void read_parameters(GradInput& g, const std::string& file, const toml::node& no
   parameter_values(g.base.systems, g.parameters);
 }
 
-std::vector<double> density_on_mesh(const std::string& path, const SystemSpec& s, std::vector<std::string>& warnings) {
-  ExternalTerm table = read_potential_table(path);  // two columns: x (bohr), n
-  const Mesh mesh = s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z);
-  std::vector<double> out(mesh.num_nodes(), 0.0);
-  bool outside = false;
-  for (int k = 0; k < mesh.num_nodes(); ++k) {
-    const double x = mesh.x()(k);
-    if (x < table.table_x.front() || x > table.table_x.back()) {
-      outside = true;
-      continue;  // no reference there: zero density
-    }
-    out[k] = table.value(x);
+Mesh mesh_of(const SystemSpec& s) { return s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z); }
+
+// Natural cubic spline through (x, y): second derivatives at the points.
+std::vector<double> natural_spline(const std::vector<double>& x, const std::vector<double>& y) {
+  const std::size_t n = x.size();
+  std::vector<double> m(n, 0.0), u(n, 0.0);
+  for (std::size_t i = 1; i + 1 < n; ++i) {
+    const double sig = (x[i] - x[i - 1]) / (x[i + 1] - x[i - 1]);
+    const double q = sig * m[i - 1] + 2.0;
+    m[i] = (sig - 1.0) / q;
+    const double d = (y[i + 1] - y[i]) / (x[i + 1] - x[i]) - (y[i] - y[i - 1]) / (x[i] - x[i - 1]);
+    u[i] = (6.0 * d / (x[i + 1] - x[i - 1]) - sig * u[i - 1]) / q;
   }
-  if (outside)
-    warnings.push_back("reference density " + path + " does not cover the whole grid of '" + s.name +
-                       "'; it is taken as zero outside [" + std::to_string(table.table_x.front()) + ", " +
-                       std::to_string(table.table_x.back()) + "] bohr");
+  for (std::size_t k = n - 1; k-- > 0;) m[k] = m[k] * m[k + 1] + u[k];
+  m[n - 1] = 0.0;
+  return m;
+}
+
+std::vector<std::string> split_fields(const std::string& line) {
+  std::vector<std::string> out;
+  std::string cur;
+  for (char ch : line) {
+    if (ch == ',' || ch == ' ' || ch == '\t' || ch == '\r') {
+      if (!cur.empty()) out.push_back(cur);
+      cur.clear();
+    } else {
+      cur += ch;
+    }
+  }
+  if (!cur.empty()) out.push_back(cur);
   return out;
 }
 
-void read_loss(GradInput& g, const std::string& file, const toml::node& node) {
+// Two columns of a CSV table: position (first column) and the named (or second) column.
+ExternalTerm read_table_columns(const std::string& path, const std::vector<std::string>& value_names, const char* what) {
+  std::ifstream in(path);
+  if (!in) throw InputError(SourceLocation{path, 0, 0, ""}, std::string("cannot open the ") + what + " table");
+  ExternalTerm t;
+  t.kind = ExternalTerm::Kind::Table;
+  t.source = path;
+  std::string line;
+  int lineno = 0;
+  std::size_t col = 1;
+  bool header_seen = false;
+  while (std::getline(in, line)) {
+    ++lineno;
+    const auto first = line.find_first_not_of(" \t\r");
+    if (first == std::string::npos || line[first] == '#') continue;
+    const auto f = split_fields(line);
+    if (!header_seen && t.table_x.empty() && std::isalpha(static_cast<unsigned char>(line[first]))) {
+      header_seen = true;
+      for (std::size_t c = 1; c < f.size(); ++c)
+        if (std::find(value_names.begin(), value_names.end(), f[c]) != value_names.end()) {
+          col = c;
+          break;
+        }
+      continue;
+    }
+    SourceLocation where{path, lineno, 0, ""};
+    if (f.size() <= col) throw InputError(where, "expected at least " + std::to_string(col + 1) + " columns");
+    double x = 0.0, v = 0.0;
+    try {
+      std::size_t used = 0;
+      x = std::stod(f[0], &used);
+      if (used != f[0].size()) throw std::invalid_argument("x");
+      v = std::stod(f[col], &used);
+      if (used != f[col].size()) throw std::invalid_argument("v");
+    } catch (const std::exception&) {
+      throw InputError(where, "expected numbers (position in bohr, then the values)");
+    }
+    if (!std::isfinite(x) || !std::isfinite(v)) throw InputError(where, "non-finite value");
+    if (!t.table_x.empty() && x <= t.table_x.back()) throw InputError(where, "positions must be strictly ascending");
+    t.table_x.push_back(x);
+    t.table_v.push_back(v);
+  }
+  if (t.table_x.size() < 2) throw InputError(SourceLocation{path, 0, 0, ""}, std::string("a ") + what + " table needs at least two rows");
+  t.table_m = natural_spline(t.table_x, t.table_v);
+  return t;
+}
+
+}  // namespace
+
+std::vector<double> detail::density_on_mesh(const std::string& path, const SystemSpec& s, std::vector<std::string>& warnings) {
+  const ExternalTerm table =
+      read_table_columns(path, {"n", "density", "n_per_bohr", "n_per_bohr3"}, "density");
+  const Mesh mesh = mesh_of(s);
+  std::vector<double> out(mesh.num_nodes(), 0.0);
+  bool beyond = false;
+  for (int k = 0; k < mesh.num_nodes(); ++k) {
+    const double x = mesh.x()(k);
+    if (x < table.table_x.front() || x > table.table_x.back()) {
+      // No reference there: zero density. Nodes without quadrature weight (r = 0) take the
+      // nearest tabulated value, which only matters for plots.
+      if (mesh.density_weight()(k) == 0.0) out[k] = table.value(x);
+      else beyond = true;
+      continue;
+    }
+    out[k] = table.value(x);
+  }
+  double peak = 0.0;
+  for (double v : table.table_v) peak = std::max(peak, std::abs(v));
+  const double edge = std::max(std::abs(table.table_v.front()), std::abs(table.table_v.back()));
+  if (beyond && edge > 1e-6 * peak) {
+    char buf[400];
+    std::snprintf(buf, sizeof buf,
+                  "reference density %s does not cover the density of '%s': the table stops at [%g, %g] bohr where "
+                  "it is still %.2g of its maximum, and is taken as zero beyond",
+                  path.c_str(), s.name.c_str(), table.table_x.front(), table.table_x.back(), edge / peak);
+    warnings.push_back(buf);
+  }
+  return out;
+}
+
+namespace {
+
+void read_loss(detail::GradParsed& parsed, const std::string& file, const toml::node& node,
+               const detail::GradReadExtras& extras) {
+  GradInput& g = parsed.input;
   const toml::array* arr = node.as_array();
   if (!arr) throw InputError(location(file, node, "loss"), "use [[loss]] tables");
   int i = 0;
@@ -234,7 +349,9 @@ void read_loss(GradInput& g, const std::string& file, const toml::node& node) {
     const std::string path = "loss[" + std::to_string(i++) + "]";
     const toml::table* t = e.as_table();
     if (!t) throw InputError(location(file, e, path), "expected a table");
-    check_keys(file, *t, path, {"kind", "system", "minus", "reference", "region", "state", "spin", "target", "weight", "name"});
+    check_keys(file, *t, path,
+               with({"kind", "system", "minus", "reference", "region", "state", "spin", "target", "weight", "name"},
+                    extras.loss_keys));
     LossTerm L;
     const std::string kind = string(file, *t, "kind", path, "");
     const toml::node* sn = t->get("system");
@@ -255,7 +372,12 @@ void read_loss(GradInput& g, const std::string& file, const toml::node& node) {
       if (rp.is_relative()) rp = std::filesystem::path(file).parent_path() / rp;
       if (!std::filesystem::exists(rp)) throw InputError(location(file, *t->get("reference"), path + ".reference"), "file not found: " + rp.string());
       const SystemSpec& s = g.base.systems[L.system];
-      L.reference = density_on_mesh(rp.string(), s, g.warnings);
+      try {
+        L.reference = detail::density_on_mesh(rp.string(), s, g.warnings);
+      } catch (const InputError& err) {
+        if (!err.where().file.empty()) throw;
+        throw InputError(location(file, *t->get("reference"), path + ".reference"), err.what());
+      }
       if (const toml::node* rn = t->get("region")) {
         const toml::array* ra = rn->as_array();
         if (!ra || ra->size() != 2) throw InputError(location(file, *rn, path + ".region"), "expected [x_min, x_max] in bohr");
@@ -284,15 +406,77 @@ void read_loss(GradInput& g, const std::string& file, const toml::node& node) {
                        "kind must be density, energy, eigenvalue or energy_difference");
     }
     g.loss.push_back(L);
+    parsed.loss_tables.push_back(t);
   }
 }
 
-GradInput parse_root(const toml::table& root, const std::string& file) {
-  GradInput g;
-  g.base = detail::parse_solve_root(root, file, {"parameter", "loss", "grad"});
+// initial_model = "fitted-model.toml": every parameter starts from its value in that file (a
+// `solve` input, as `fit` writes it), taken from the system of the same name. Grid potentials
+// come from SYSTEM_grid_potential.csv beside it.
+void apply_initial_model(detail::GradParsed& parsed, const std::string& file, const toml::node& node) {
+  GradInput& g = parsed.input;
+  const SourceLocation at = location(file, node, "initial_model");
+  auto name = node.value<std::string>();
+  if (!name) throw InputError(at, "expected the path of a fitted-model file (a solve input written by fit)");
+  std::filesystem::path mp(*name);
+  if (mp.is_relative()) mp = std::filesystem::path(file).parent_path() / mp;
+  if (!std::filesystem::exists(mp)) throw InputError(at, "file not found: " + mp.string());
+  const SolveInput model = read_solve_input(mp.string());
+  auto model_system = [&](const std::string& sys) -> const SystemSpec* {
+    for (const SystemSpec& m : model.systems)
+      if (m.name == sys) return &m;
+    return nullptr;
+  };
+  Eigen::VectorXd theta = parameter_values(g.base.systems, g.parameters);
+  for (std::size_t i = 0; i < g.parameters.size(); ++i) {
+    const ParameterRef& p = g.parameters[i];
+    // The workflow system whose model counterpart supplies the value.
+    const SystemSpec* ws = nullptr;
+    const SystemSpec* ms = nullptr;
+    for (std::size_t s = 0; s < g.base.systems.size() && !ms; ++s) {
+      if (p.system >= 0 && static_cast<int>(s) != p.system) continue;
+      ws = &g.base.systems[s];
+      ms = model_system(ws->name);
+    }
+    if (!ms)
+      throw InputError(at, "parameter '" + p.name + "': " + mp.string() + " has no system named " +
+                               (p.system >= 0 ? "'" + g.base.systems[p.system].name + "'" : "like any system of this file"));
+    const bool xc = p.kind == ParameterRef::Kind::XcWeight || p.kind == ParameterRef::Kind::XcParameter;
+    if (xc && (p.index >= static_cast<int>(ms->xc.size()) || ms->xc[p.index] != ws->xc[p.index]))
+      throw InputError(at, "parameter '" + p.name + "': system '" + ms->name + "' of " + mp.string() +
+                               " has a different xc list");
+    if (p.kind == ParameterRef::Kind::GridPotential) {
+      const std::filesystem::path gp = mp.parent_path() / (ms->name + "_grid_potential.csv");
+      if (!std::filesystem::exists(gp))
+        throw InputError(at, "parameter '" + p.name + "': " + gp.string() + " (the fitted grid potential) is missing");
+      const ExternalTerm table = read_table_columns(gp.string(), {"v_hartree", "v_grid_hartree"}, "grid potential");
+      theta(i) = table.value(mesh_of(*ws).x()(p.index));
+      continue;
+    }
+    ParameterRef one = p;
+    one.system = -1;
+    try {
+      theta(i) = parameter_values({*ms}, {one})(0);
+    } catch (const InputError& e) {
+      throw InputError(at, "parameter '" + p.name + "' in " + mp.string() + ": " + e.what());
+    }
+  }
+  g.base.systems = apply_parameters(g.base.systems, g.parameters, theta);
+}
+
+}  // namespace
+
+namespace detail {
+
+GradParsed parse_grad_root(const toml::table& root, const std::string& file, const GradReadExtras& extras) {
+  GradParsed parsed;
+  GradInput& g = parsed.input;
+  std::vector<std::string> top{"parameter", "loss", "initial_model"};
+  if (extras.grad_table) top.push_back("grad");
+  g.base = detail::parse_solve_root(root, file, with(top, extras.top_keys));
   g.options.scf = g.base.scf;
   g.options.density_threshold = g.base.density_threshold;
-  if (const toml::node* gn = root.get("grad")) {
+  if (const toml::node* gn = extras.grad_table ? root.get("grad") : nullptr) {
     const toml::table* t = gn->as_table();
     if (!t) throw InputError(location(file, *gn, "grad"), "expected a [grad] table");
     check_keys(file, *t, "grad",
@@ -317,14 +501,37 @@ GradInput parse_root(const toml::table& root, const std::string& file) {
   }
   const toml::node* pn = root.get("parameter");
   if (!pn) throw InputError(SourceLocation{file, 0, 0, "parameter"}, "no [[parameter]] given: nothing to differentiate");
-  read_parameters(g, file, *pn);
+  read_parameters(parsed, file, *pn, extras);
+  if (const toml::node* mn = root.get("initial_model")) apply_initial_model(parsed, file, *mn);
   const toml::node* ln = root.get("loss");
   if (!ln) throw InputError(SourceLocation{file, 0, 0, "loss"}, "no [[loss]] given");
-  read_loss(g, file, *ln);
-  return g;
+  read_loss(parsed, file, *ln, extras);
+  return parsed;
 }
 
-}  // namespace
+void check_parameter_bounds(const GradParsed& parsed, const std::string& file) {
+  const GradInput& g = parsed.input;
+  const Eigen::VectorXd v = parameter_values(g.base.systems, g.parameters);
+  for (std::size_t i = 0; i < g.parameters.size(); ++i) {
+    const ParameterRef& p = g.parameters[i];
+    const toml::table& t = *parsed.parameter_blocks[parsed.block_of[i]];
+    const std::string path = "parameter[" + std::to_string(parsed.block_of[i]) + "]";
+    auto where = [&](const char* key) {
+      const toml::node* n = t.get(key);
+      return n ? location(file, *n, path + "." + key) : location(file, t, path + "." + key);
+    };
+    if (!(p.lower < p.upper))
+      throw InputError(where("upper"), "the bounds of '" + p.name + "' are empty: lower = " + std::to_string(p.lower) +
+                                           " is not below upper = " + std::to_string(p.upper));
+    char buf[200];
+    std::snprintf(buf, sizeof buf, "the initial value %.10g of '%s' lies outside its bounds [%.10g, %.10g]", v(i),
+                  p.name.c_str(), p.lower, p.upper);
+    if (v(i) < p.lower) throw InputError(where("lower"), buf);
+    if (v(i) > p.upper) throw InputError(where("upper"), buf);
+  }
+}
+
+}  // namespace detail
 
 GradInput parse_grad_input(const std::string& text, const std::string& name) {
   toml::table root;
@@ -335,7 +542,9 @@ GradInput parse_grad_input(const std::string& text, const std::string& name) {
     throw InputError(SourceLocation{name, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), ""},
                      std::string(e.description()));
   }
-  return parse_root(root, name);
+  detail::GradParsed parsed = detail::parse_grad_root(root, name, {});
+  detail::check_parameter_bounds(parsed, name);
+  return std::move(parsed.input);
 }
 
 GradInput read_grad_input(const std::string& path) {

@@ -92,6 +92,12 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
     }
     v_ext_ = Eigen::VectorXd::Zero(mesh_->num_nodes());
     for (int k = 1; k < mesh_->num_nodes(); ++k) v_ext_(k) = -Z / mesh_->x()(k);
+    if (!spec.nodal_potential.empty()) {
+      if (static_cast<int>(spec.nodal_potential.size()) != mesh_->num_nodes())
+        throw InputError("nodal_potential has " + std::to_string(spec.nodal_potential.size()) + " values for " +
+                         std::to_string(mesh_->num_nodes()) + " grid nodes");
+      for (int k = 1; k < mesh_->num_nodes(); ++k) v_ext_(k) += spec.nodal_potential[k];
+    }
     // `interacting = false` (SystemSpec::line.interacting, used by both geometries) drops the
     // Hartree term: the non-interacting problems of Kohn–Sham inversion.
     if (spec.line.interacting) hartree_ = std::make_unique<Hartree>(*mesh_, 0.0);
