@@ -17,6 +17,9 @@
 
 extern "C" void openblas_set_num_threads(int);
 
+void exact_report();   // bench/exact_bench.cpp
+void invert_report();  // bench/invert_bench.cpp
+
 namespace sp = stillpoint;
 
 namespace {
@@ -269,5 +272,7 @@ int main(int argc, char** argv) {
   eigensolver_report();
   gradient_report(481);
   gradient_report(2401);
+  exact_report();
+  invert_report();
   return 0;
 }
