@@ -121,6 +121,8 @@ class GradientProblem {
 
   /// Loss and its exact gradient at theta (SCF of every system, then tangent or adjoint).
   GradientResult evaluate(const Eigen::VectorXd& theta);
+  /// Loss, term values and quantities without any derivative (gradient left empty).
+  GradientResult terms(const Eigen::VectorXd& theta);
   /// Loss only (SCF of every system), with tighter SCF options if given.
   double loss(const Eigen::VectorXd& theta, const ScfOptions* scf = nullptr);
   /// Central finite differences of the whole converged program, step h_p per parameter.

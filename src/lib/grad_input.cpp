@@ -138,6 +138,7 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
       ParameterRef first = base;
       first.sub = 0;
       first.name = ref.xc[base.index];
+      first.system = -1;  // probe is the only system in the list below
       try {
         parameter_values({probe}, {first});
       } catch (const InputError& e) {

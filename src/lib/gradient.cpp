@@ -425,6 +425,17 @@ double GradientProblem::loss(const Eigen::VectorXd& theta, const ScfOptions* scf
   return loss_partials(loss_, c->problems, c->solutions).loss;
 }
 
+GradientResult GradientProblem::terms(const Eigen::VectorXd& theta) {
+  GradientResult res;
+  const auto c = solve(theta, nullptr);
+  const Partials L = loss_partials(loss_, c->problems, c->solutions);
+  res.loss = L.loss;
+  res.term_values = L.term_values;
+  res.term_quantities = L.term_quantities;
+  res.scf_seconds = c->scf_seconds;
+  return res;
+}
+
 GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
   GradientResult res;
   const auto c = solve(theta, nullptr);

@@ -1,0 +1,42 @@
+#pragma once
+// Internal: the `grad` reader, shared with the `fit` workflow reader, which adds its own keys
+// to the same [[parameter]] and [[loss]] tables and reads them itself.
+#include <toml++/toml.h>
+
+#include <string>
+#include <vector>
+
+#include "stillpoint/grad_input.hpp"
+
+namespace stillpoint::detail {
+
+struct GradReadExtras {
+  std::vector<std::string> top_keys;        ///< further top-level keys, read by the caller
+  std::vector<std::string> parameter_keys;  ///< further [[parameter]] keys
+  std::vector<std::string> loss_keys;       ///< further [[loss]] keys
+  bool grad_table = true;                   ///< accept a [grad] table
+};
+
+struct GradParsed {
+  GradInput input;
+  std::vector<const toml::table*> parameter_blocks;  ///< every [[parameter]] table, in order
+  std::vector<int> block_of;                         ///< block index of every ParameterRef
+  std::vector<const toml::table*> loss_tables;       ///< the [[loss]] table of every LossTerm
+};
+
+/// Reads systems, parameters (with initial_model applied) and loss from a parsed file. The
+/// pointers refer into `root`, which must outlive the result. Bounds are not checked here.
+GradParsed parse_grad_root(const toml::table& root, const std::string& file, const GradReadExtras& extras);
+
+/// InputError when a parameter's current value lies outside [lower, upper] or lower >= upper,
+/// placed at the block's lower/upper key.
+void check_parameter_bounds(const GradParsed& parsed, const std::string& file);
+
+/// A density table (x or r in bohr, density) read from CSV: a header line names the columns
+/// (the density column is the first named n, density, n_per_bohr or n_per_bohr3; otherwise the
+/// second column), '#' comments. Interpolated onto the system's mesh by a natural cubic
+/// spline, zero outside; a warning is added when the table stops where the density is not
+/// negligible and the mesh extends further.
+std::vector<double> density_on_mesh(const std::string& path, const SystemSpec& system, std::vector<std::string>& warnings);
+
+}  // namespace stillpoint::detail
