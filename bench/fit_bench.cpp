@@ -72,7 +72,7 @@ void fit_report() {
   std::printf("\nFit benchmark (workflows/fit-*.toml; seconds of wall time):\n");
   std::printf("  %-28s %10s %12s %10s %12s %12s %10s\n", "demo", "SCF all", "s/iteration", "ratio", "1 thread", "2 threads",
               "speed-up");
-  for (const char* name : {"fit-atoms-xalpha", "fit-atoms-exchange", "fit-1d-correlation", "fit-1d-potential"}) {
+  for (const char* name : {"fit-atoms-xalpha", "fit-atoms-exchange", "fit-1d-correlation", "fit-1d-formula", "fit-1d-potential"}) {
     sp::FitWorkflow wf;
     try {
       wf = sp::read_fit_workflow(dir + name + ".toml");
@@ -90,7 +90,7 @@ void fit_report() {
   std::printf("  (SCF all: one cold SCF of every system; ratio = time per fit iteration / SCF all, 1 thread;\n"
               "   the thread columns run the first iterations of each fit with 1 and 2 threads)\n");
   std::printf("\nWhole demos as the command runs them (workflow threads, reports written to memory, no plots):\n");
-  for (const char* name : {"fit-atoms-xalpha", "fit-atoms-exchange", "fit-1d-correlation", "fit-1d-potential"}) {
+  for (const char* name : {"fit-atoms-xalpha", "fit-atoms-exchange", "fit-1d-correlation", "fit-1d-formula", "fit-1d-potential"}) {
     try {
       const auto t0 = std::chrono::steady_clock::now();
       const sp::FitWorkflow wf = sp::read_fit_workflow(dir + name + ".toml");

@@ -11,13 +11,19 @@
 //    (HF energies: Clementi & Roetti, At. Data Nucl. Data Tables 14, 177 (1974), §4f).
 #include <gtest/gtest.h>
 
+#include <signal.h>
+#include <sys/wait.h>
 #include <unistd.h>
 
 #include <cmath>
 #include <filesystem>
 
+#include <nlohmann/json.hpp>
+
+#include "cli_support.hpp"
 #include "stillpoint/atom_config.hpp"
 #include "stillpoint/fit.hpp"
+#include "stillpoint/fit_input.hpp"
 #include "stillpoint/grid_presets.hpp"
 
 namespace sp = stillpoint;
@@ -363,10 +369,6 @@ TEST(FitUncertainty, GaussNewtonErrorsAndCorrelations) {
 
 // ---------------------------------------------------------------------------------------
 // Workflow files and the command line.
-#include <nlohmann/json.hpp>
-
-#include "cli_support.hpp"
-#include "stillpoint/fit_input.hpp"
 
 namespace {
 
@@ -552,6 +554,49 @@ TEST(FitCli, OutputsAndFittedModelRoundTrip) {
   EXPECT_NE(b.err.find("bad.toml:2:11: key 'fit.threads'"), std::string::npos) << b.err;
 }
 
+// Runs `stillpoint fit ARGS` in `dir` and sends `sig` once the progress line of iteration
+// `after` has appeared on standard error (so the test does not depend on timing). Returns
+// the exit status and the standard error text.
+std::pair<int, std::string> fit_and_signal(const std::filesystem::path& dir, const std::vector<std::string>& args, int sig,
+                                           int after) {
+  int fd[2];
+  if (::pipe(fd) != 0) return {-1, "pipe failed"};
+  const pid_t pid = ::fork();
+  if (pid == 0) {
+    ::close(fd[0]);
+    ::dup2(fd[1], 2);
+    if (::chdir(dir.c_str()) != 0) ::_exit(127);
+    ::setenv("OPENBLAS_NUM_THREADS", "1", 1);
+    std::vector<char*> argv{const_cast<char*>(STILLPOINT_CLI_PATH), const_cast<char*>("fit")};
+    for (const auto& a : args) argv.push_back(const_cast<char*>(a.c_str()));
+    argv.push_back(nullptr);
+    ::execv(STILLPOINT_CLI_PATH, argv.data());
+    ::_exit(127);
+  }
+  ::close(fd[1]);
+  std::string err, line;
+  bool sent = false;
+  char c;
+  while (::read(fd[0], &c, 1) == 1) {
+    err += c;
+    if (c != '\n') {
+      line += c;
+      continue;
+    }
+    int it = -1;
+    double loss = 0.0;
+    if (!sent && std::sscanf(line.c_str(), "%d %lf", &it, &loss) == 2 && it >= after) {
+      ::kill(pid, sig);
+      sent = true;
+    }
+    line.clear();
+  }
+  ::close(fd[0]);
+  int status = 0;
+  ::waitpid(pid, &status, 0);
+  return {WIFEXITED(status) ? WEXITSTATUS(status) : -1, err};
+}
+
 // Ctrl-C (SIGINT) stops a running fit cleanly with a checkpoint (exit 130, no report), SIGTERM
 // likewise (exit 143), and --resume then reaches exactly the result of an uninterrupted run.
 TEST(FitCli, InterruptWritesCheckpointAndResumeEqualsUninterrupted) {
@@ -564,19 +609,18 @@ TEST(FitCli, InterruptWritesCheckpointAndResumeEqualsUninterrupted) {
     ASSERT_NE(at, std::string::npos) << a;
     w.replace(at, a.size(), b);
   };
-  replace("max_iterations = 200", "max_iterations = 40\ncheckpoint_every = 100");
+  // A smaller box and fewer iterations than the demo: the same code paths, a second of work.
+  replace("max_iterations = 200", "max_iterations = 20\ncheckpoint_every = 100\nuncertainties = false");
+  replace("half_width = 10.0", "half_width = 7.0");
   replace("reference = \"data/fit-1d-potential-target.csv\"", "reference = \"target.csv\"");
   s.write("pot.toml", w);
   const auto full = s.cli("fit pot.toml --output full --quiet");
   ASSERT_EQ(full.rc, 0) << full.err;
-  for (const auto& [sig, rc] : std::vector<std::pair<std::string, int>>{{"INT", 130}, {"TERM", 143}}) {
-    const std::string dir = "part" + sig;
-    const std::string cmd = "cd '" + s.dir().string() + "' && OPENBLAS_NUM_THREADS=1 timeout --preserve-status -s " + sig +
-                            " 1.0 '" + STILLPOINT_CLI_PATH + "' fit pot.toml --output " + dir + " --quiet >.out 2>.err";
-    const int status = std::system(cmd.c_str());
-    ASSERT_TRUE(WIFEXITED(status));
-    EXPECT_EQ(WEXITSTATUS(status), rc) << s.read(".err");
-    EXPECT_NE(s.read(".err").find("checkpoint written"), std::string::npos) << sig << ": " << s.read(".err") << s.read(".out");
+  for (const auto& [sig, rc] : std::vector<std::pair<int, int>>{{SIGINT, 130}, {SIGTERM, 143}}) {
+    const std::string dir = "part" + std::to_string(sig);
+    const auto [status, err] = fit_and_signal(s.dir(), {"pot.toml", "--output", dir}, sig, 3);
+    EXPECT_EQ(status, rc) << err;
+    EXPECT_NE(err.find("checkpoint written"), std::string::npos) << err;
     EXPECT_TRUE(s.exists(dir + "/checkpoint.bin"));
     EXPECT_FALSE(s.exists(dir + "/fit.json"));
     const auto resumed = s.cli("fit pot.toml --output " + dir + " --resume --quiet");
@@ -599,4 +643,76 @@ TEST(FitDataset, ExactManifestBecomesSystemsAndTerms) {
   // He_Z_002 is Z = 2, the 1D helium atom; its exact energy is -2.238258 (check-values.md §2).
   EXPECT_NEAR(*wf.spec.training[2].target, -2.23825782, 1e-6);
   EXPECT_EQ(wf.spec.parameters.size(), 3u);
+}
+
+// The residual Jacobian from tangent solves (GradientProblem::residuals, used by LM and for
+// the uncertainties) against two independent routes: the adjoint gradient (dL/dtheta =
+// 2 J^T r, design note differentiable-scf.md §3-4) and central finite differences of the
+// residuals of the whole converged program (§10).
+TEST(FitJacobian, TangentJacobianMatchesAdjointGradientAndFiniteDifferences) {
+  static const Reference ref = solve_references(line_systems(kTrueC));
+  auto systems = line_systems(kStartC);
+  systems[0].line.potentials.push_back(sp::ExternalTerm{});
+  systems[0].line.potentials.back().kind = sp::ExternalTerm::Kind::Gaussian;
+  systems[0].line.potentials.back().depth = 0.2;
+  std::vector<sp::ParameterRef> params{xc_param(1, 0, "a1", "a1"), xc_param(1, 3, "b2", "b2")};
+  sp::ParameterRef depth;
+  depth.kind = sp::ParameterRef::Kind::Gaussian;
+  depth.system = 0;
+  depth.index = 0;
+  depth.field = "depth";
+  depth.name = "depth";
+  params.push_back(depth);
+  std::vector<sp::LossTerm> terms{energy_term(0, ref.energy[0] + 0.01, 3.0), density_term(0, ref.density[0], 5.0),
+                                  density_term(2, ref.density[2], 2.0)};
+  sp::LossTerm homo;
+  homo.kind = sp::LossTerm::Kind::Eigenvalue;
+  homo.system = 1;
+  homo.state = "homo";
+  homo.target = -0.6;
+  homo.weight = 4.0;
+  terms.push_back(homo);
+  sp::LossTerm diff;
+  diff.kind = sp::LossTerm::Kind::EnergyDifference;
+  diff.system = 2;
+  diff.system_b = 0;
+  diff.target = -5.0;
+  diff.weight = 0.5;
+  terms.push_back(diff);
+  sp::GradientOptions opt;
+  opt.scf = scf();
+  sp::GradientProblem G(systems, params, terms, opt);
+  const Eigen::VectorXd theta = G.initial_values();
+  const auto r = G.residuals(theta, true);
+  const auto g = G.evaluate(theta);
+  EXPECT_NEAR(r.residuals.squaredNorm(), g.loss, 1e-12 * g.loss);
+  const Eigen::VectorXd gn = 2.0 * r.jacobian.transpose() * r.residuals;
+  for (int p = 0; p < theta.size(); ++p) EXPECT_NEAR(gn(p), g.gradient(p), 1e-8 * g.gradient.norm()) << params[p].name;
+  // Central differences of the residual vector, Richardson-extrapolated (as in gradient_test.cpp).
+  for (int p = 0; p < theta.size(); ++p) {
+    auto res_at = [&](double h) {
+      Eigen::VectorXd t = theta;
+      t(p) += h;
+      return G.residuals(t, false).residuals;
+    };
+    const double h = 1e-3 * std::max(std::abs(theta(p)), 0.1);
+    const Eigen::VectorXd d1 = (res_at(h) - res_at(-h)) / (2 * h), d2 = (res_at(h / 2) - res_at(-h / 2)) / h;
+    const Eigen::VectorXd fd = (4.0 * d2 - d1) / 3.0;
+    EXPECT_LT((r.jacobian.col(p) - fd).norm(), 1e-6 * fd.norm() + 1e-9) << params[p].name;
+  }
+}
+
+// L2 priors: a strong pull holds a parameter at its prior, for both optimizers (checks the
+// regularization's value, gradient and Jacobian rows).
+TEST(FitRegularization, StrongPriorHoldsTheParameter) {
+  for (auto opt : {sp::FitOptions::Optimizer::Lbfgs, sp::FitOptions::Optimizer::LevenbergMarquardt}) {
+    sp::FitSpec spec = line_recovery_spec(opt);
+    spec.info[0].prior = 0.04;
+    spec.info[0].prior_weight = 1e12;
+    const auto res = sp::run_fit(spec);
+    EXPECT_NEAR(res.fitted(0), 0.04, 1e-6);
+    EXPECT_GT(res.after.regularization, 0.0);
+    // b2 compensates as far as it can: the data alone would want b2 = 0.08 with a1 = 0.045.
+    EXPECT_NE(res.fitted(1), kTrueC[3]);
+  }
 }

@@ -1,6 +1,8 @@
 #pragma once
 // Reading `grad` input files: the systems (as for `solve`), [[parameter]] blocks, [[loss]]
-// terms and a [grad] table. Documented key by key in docs/input.md.
+// terms, a [grad] table and an optional top-level initial_model = "fitted-model.toml" (start
+// values from a model written by `fit`). Documented key by key in docs/grad.md and docs/fit.md.
+// The `fit` workflow reader (fit_input.hpp) shares this reader and adds its own keys.
 #include <string>
 #include <vector>
 

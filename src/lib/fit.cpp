@@ -589,8 +589,6 @@ FitResult Engine::run() {
   res.initial = train_->initial_values();
   // The start: an SCF failure here is the user's problem, not a rejected step.
   res.before = snapshot(res.initial, false, nullptr, nullptr);
-  double x_storage_dummy = 0.0;
-  (void)x_storage_dummy;
   Eigen::VectorXd final_theta;
   ceres::TerminationType term = ceres::CONVERGENCE;
   std::string ceres_message;

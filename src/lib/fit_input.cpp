@@ -286,7 +286,8 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
     scale = number_key(file, t, path, "scale", scale);
     if (!(scale > 0)) throw InputError(at(file, t, path, "scale"), "must be positive");
     if (L.kind == LossTerm::Kind::Density) {
-      const Eigen::VectorXd& W = mesh_of(s).density_weight();
+      const Mesh mesh = mesh_of(s);
+      const Eigen::VectorXd& W = mesh.density_weight();
       double n2 = 0.0;
       for (std::size_t k = 0; k < L.reference.size(); ++k)
         n2 += W(static_cast<Eigen::Index>(k)) * (L.region.empty() ? 1.0 : L.region[k]) * L.reference[k] * L.reference[k];
