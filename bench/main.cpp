@@ -19,6 +19,7 @@ extern "C" void openblas_set_num_threads(int);
 
 void exact_report();   // bench/exact_bench.cpp
 void invert_report();  // bench/invert_bench.cpp
+void fit_report();     // bench/fit_bench.cpp
 
 namespace sp = stillpoint;
 
@@ -274,5 +275,6 @@ int main(int argc, char** argv) {
   gradient_report(2401);
   exact_report();
   invert_report();
+  fit_report();
   return 0;
 }
