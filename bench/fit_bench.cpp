@@ -54,6 +54,7 @@ struct Timing {
 
 Timing time_fit(sp::FitSpec spec, int threads, int max_iterations) {
   spec.options.threads = threads;
+  spec.options.uncertainties = false;  // per-iteration cost only (the errors need a Jacobian at the end)
   if (max_iterations > 0) spec.options.max_iterations = max_iterations;
   const auto t0 = std::chrono::steady_clock::now();
   const sp::FitResult r = sp::run_fit(spec);

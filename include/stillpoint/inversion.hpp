@@ -99,8 +99,14 @@ struct InversionOptions {
   Method method = Method::WuYang;
   Guide guide = Guide::FermiAmaldi;
   Constant constant = Constant::Asymptotic;
-  /// I in hartree (Constant::Ionization).
+  /// I in hartree (Constant::Ionization): the highest occupied level of either spin is −I,
+  /// and the other spin (polarized systems) keeps the edge offset the data give it.
   double ionization_energy = std::numeric_limits<double>::quiet_NaN();
+  /// Spin-polarized, Constant::Ionization: I_σ = −ε_HOMO,σ per spin (up, down), overriding
+  /// `ionization_energy`. Needed for the minority spin: its constant is set where its own
+  /// density has died out, and there (for the functionals of spin densities, in LSD for
+  /// example) its v_xc still depends on the majority density, so the edge condition cannot fix it.
+  std::vector<double> spin_ionization_energies;
   /// α > 0: one fixed regularization. 0: automatic continuation from `regularization_start`,
   /// dividing by `regularization_factor` until the density error is below `density_tolerance`.
   double regularization = 0.0;

@@ -13,7 +13,9 @@ const char kMagic[] = "STILLPOINT-FIT-CHECKPOINT 1\n";
 
 class Writer {
  public:
-  void raw(const void* p, std::size_t n) { out_.append(static_cast<const char*>(p), n); }
+  void raw(const void* p, std::size_t n) {
+    if (n) out_.append(static_cast<const char*>(p), n);
+  }
   void u64(std::uint64_t v) { raw(&v, sizeof v); }
   void u8(std::uint8_t v) { raw(&v, 1); }
   void f64(double v) { raw(&v, sizeof v); }
@@ -40,6 +42,7 @@ class Reader {
  public:
   Reader(const std::string& b, const std::string& file) : b_(b), file_(file) {}
   void raw(void* p, std::size_t n) {
+    if (n == 0) return;  // empty vectors have no storage
     if (n > b_.size() - pos_) fail();
     std::memcpy(p, b_.data() + pos_, n);
     pos_ += n;

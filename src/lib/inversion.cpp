@@ -616,8 +616,18 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
     if (t.size() != N || !t.allFinite() || t.minCoeff() < 0)
       throw InputError("the target density must be finite and non-negative at each of the " + std::to_string(N) +
                        " grid nodes");
-  if (opt.constant == InversionOptions::Constant::Ionization && !(std::isfinite(opt.ionization_energy)))
+  const bool per_spin = !opt.spin_ionization_energies.empty();
+  if (per_spin) {
+    if (opt.constant != InversionOptions::Constant::Ionization)
+      throw InputError("ionization energies per spin are used only with constant = \"ionization\"");
+    if (static_cast<int>(opt.spin_ionization_energies.size()) != ns)
+      throw InputError("ionization energies per spin: the system has " + std::to_string(ns) + " spin channel" +
+                       (ns == 1 ? "" : "s") + ", " + std::to_string(opt.spin_ionization_energies.size()) + " were given");
+    for (double I : opt.spin_ionization_energies)
+      if (!std::isfinite(I)) throw InputError("ionization energies per spin must be finite (hartree)");
+  } else if (opt.constant == InversionOptions::Constant::Ionization && !(std::isfinite(opt.ionization_energy))) {
     throw InputError("constant = \"ionization\" needs a finite ionization_energy (hartree)");
+  }
   if (opt.regularization < 0 || !(opt.density_tolerance > 0) || !(opt.trust_threshold >= 0) ||
       !(opt.regularization_factor > 1) || !(opt.regularization_start > 0))
     throw InputError("inversion options out of range (regularization >= 0, density_tolerance > 0, factor > 1)");
@@ -835,16 +845,27 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
   R.shift.assign(ns, 0.0);
   double homo = -std::numeric_limits<double>::infinity();
   int homo_spin = 0;
+  std::vector<double> spin_homo(ns, -std::numeric_limits<double>::infinity());
   for (std::size_t ci = 0; ci < P.channels().size(); ++ci) {
     const Channel& ch = P.channels()[ci];
     for (std::size_t i = 0; i < ch.occupations.size(); ++i)
-      if (ch.occupations[i] > 0 && ev.states[ci].energies(i) > homo) {
-        homo = ev.states[ci].energies(i);
-        homo_spin = ch.spin;
+      if (ch.occupations[i] > 0) {
+        spin_homo[ch.spin] = std::max(spin_homo[ch.spin], ev.states[ci].energies(i));
+        if (ev.states[ci].energies(i) > homo) {
+          homo = ev.states[ci].energies(i);
+          homo_spin = ch.spin;
+        }
       }
   }
   if (opt.constant == InversionOptions::Constant::Asymptotic) {
     for (int s = 0; s < ns; ++s) R.shift[s] = -edge_value(m, delta[s]);
+  } else if (per_spin) {
+    for (int s = 0; s < ns; ++s) {
+      if (!std::isfinite(spin_homo[s]))
+        throw InputError("an ionization energy was given for spin " + std::string(s == 0 ? "up" : "down") +
+                         ", which holds no electrons; give one per occupied spin or a single ionization_energy");
+      R.shift[s] = -opt.spin_ionization_energies[s] - spin_homo[s];
+    }
   } else {
     R.shift[homo_spin] = -opt.ionization_energy - homo;
     for (int s = 0; s < ns; ++s)
@@ -853,7 +874,9 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
   if (!radial) {
     for (int s = 0; s < ns; ++s) R.tail_mismatch = std::max(R.tail_mismatch, std::abs(delta[s](0) - delta[s](N - 1)));
   }
-  R.homo = homo + R.shift[homo_spin];
+  R.homo = -std::numeric_limits<double>::infinity();
+  for (int s = 0; s < ns; ++s)
+    if (std::isfinite(spin_homo[s])) R.homo = std::max(R.homo, spin_homo[s] + R.shift[s]);
   R.v_s.resize(ns);
   for (int s = 0; s < ns; ++s) {
     R.v_s[s] = vg + delta[s];

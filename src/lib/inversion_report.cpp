@@ -113,7 +113,21 @@ InvertInput parse_root(const toml::table& root, const std::string& file) {
   if (constant == "ionization") {
     o.constant = InversionOptions::Constant::Ionization;
     if (!has_ip) bad(file, *t->get("constant"), "constant", "constant = \"ionization\" needs ionization_energy = I (hartree)");
-    o.ionization_energy = positive(file, *t, "ionization_energy", 0.0);
+    const toml::node& ipn = *t->get("ionization_energy");
+    if (const toml::array* arr = ipn.as_array()) {
+      const int ns = in.system.spin_polarized ? 2 : 1;
+      if (ns != 2 || arr->size() != 2)
+        bad(file, ipn, "ionization_energy",
+            ns == 2 ? "expected one number (the highest level of either spin) or two, [I_up, I_down] (hartree)"
+                    : "a list of ionization energies (one per spin) needs spin = \"polarized\" in the system; give one number");
+      for (const toml::node& e : *arr) {
+        const auto v = e.value<double>();
+        if (!v || !(*v > 0) || !std::isfinite(*v)) bad(file, e, "ionization_energy", "expected positive numbers (hartree)");
+        o.spin_ionization_energies.push_back(*v);
+      }
+    } else {
+      o.ionization_energy = positive(file, *t, "ionization_energy", 0.0);
+    }
   } else if (has_ip) {
     bad(file, *t->get("ionization_energy"), "ionization_energy",
         "ionization_energy is used only with constant = \"ionization\"; remove one of the two");
@@ -247,7 +261,10 @@ std::string format_inversion(const InvertInput& in, const TargetDensity& t, cons
   out << "  grid        " << m.describe() << "\n";
   out << "  guide       " << guide_name(o) << "; constant by "
       << (o.constant == InversionOptions::Constant::Asymptotic ? "the asymptotic condition (v_s -> guide at the grid edge)"
-                                                                : "the ionization energy I = " + g6(o.ionization_energy) + " Ha")
+                : o.spin_ionization_energies.size() == 2
+                    ? "the ionization energies per spin I_up = " + g6(o.spin_ionization_energies[0]) +
+                          " Ha, I_down = " + g6(o.spin_ionization_energies[1]) + " Ha"
+                    : "the ionization energy I = " + g6(o.ionization_energy) + " Ha")
       << "\n";
   std::snprintf(buf, sizeof buf, "  converged   %d iterations, regularization alpha = %.3e (%s)\n", r.iterations,
                 r.regularization, o.regularization == 0.0 ? "automatic" : "fixed");
@@ -320,7 +337,12 @@ std::string inversion_json(const InvertInput& in, const TargetDensity& t, const 
   j["guide"] = guide_name(o);
   json c = {{"kind", o.constant == InversionOptions::Constant::Asymptotic ? "asymptotic" : "ionization"},
             {"shift_per_spin", r.shift}};
-  if (o.constant == InversionOptions::Constant::Ionization) c["ionization_energy"] = o.ionization_energy;
+  if (o.constant == InversionOptions::Constant::Ionization) {
+    if (o.spin_ionization_energies.empty())
+      c["ionization_energy"] = o.ionization_energy;
+    else
+      c["ionization_energy_per_spin"] = o.spin_ionization_energies;
+  }
   if (!radial) c["tail_mismatch"] = r.tail_mismatch;
   j["constant"] = c;
   j["regularization"] = {{"alpha", r.regularization},
