@@ -83,7 +83,7 @@ void fit_report() {
     }
     const double scf = scf_of_every_system(wf.spec);
     // A fixed number of iterations, so that both thread counts do the same work.
-    const int its = std::string(name) == "fit-1d-potential" ? 30 : 6;
+    const int its = 6;
     const Timing one = time_fit(wf.spec, 1, its), two = time_fit(wf.spec, 2, its);
     std::printf("  %-28s %10.3f %12.4f %10.2f %12.3f %12.3f %10.2f\n", name, scf, one.per_iteration,
                 scf > 0 ? one.per_iteration / scf : 0.0, one.seconds, two.seconds, two.seconds > 0 ? one.seconds / two.seconds : 0.0);

@@ -610,6 +610,7 @@ TEST(FitCli, InterruptWritesCheckpointAndResumeEqualsUninterrupted) {
     w.replace(at, a.size(), b);
   };
   // A smaller box and fewer iterations than the demo: the same code paths, a second of work.
+  replace("optimizer = \"levenberg_marquardt\"", "optimizer = \"lbfgs\"");  // many cheap iterations to interrupt
   replace("max_iterations = 200", "max_iterations = 20\ncheckpoint_every = 100\nuncertainties = false");
   replace("half_width = 10.0", "half_width = 7.0");
   replace("reference = \"data/fit-1d-potential-target.csv\"", "reference = \"target.csv\"");
