@@ -7,7 +7,6 @@
 #include <cstdio>
 #include <cstdlib>
 #include <filesystem>
-#include <fstream>
 #include <set>
 #include <sstream>
 
@@ -19,78 +18,38 @@ namespace stillpoint {
 namespace {
 
 namespace fs = std::filesystem;
+using detail::bool_key;
+using detail::key_location;
 using detail::location;
+using detail::number_key;
 
-std::string num(double v) {
-  char buf[40];
-  std::snprintf(buf, sizeof buf, "%.10g", v);
-  return buf;
-}
-
-void check_keys(const std::string& file, const toml::table& t, const std::string& path,
-                const std::vector<std::string>& allowed) {
-  for (const auto& [k, v] : t) {
-    const std::string key(k.str());
-    if (std::find(allowed.begin(), allowed.end(), key) != allowed.end()) continue;
-    const std::string near = nearest_word(key, allowed);
-    std::string valid;
-    for (const auto& a : allowed) valid += (valid.empty() ? "" : ", ") + a;
-    throw InputError(location(file, v, path + "." + key), "unknown key" +
-                                                              (near.empty() ? std::string() : "; did you mean '" + near + "'?") +
-                                                              " (valid here: " + valid + ")");
-  }
-}
-
-SourceLocation loc_in(const std::string& file, const toml::table& t, const std::string& path, const std::string& key) {
-  if (const toml::node* n = t.get(key)) return location(file, *n, path + "." + key);
-  return location(file, t, path + "." + key);
-}
-
-double get_number(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, double def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  auto v = n->value<double>();
-  if (!n->is_number() || !v || !std::isfinite(*v)) throw InputError(location(file, *n, path + "." + key), "expected a finite number");
-  return *v;
-}
+std::string num(double v) { return detail::format_number(v, 10); }
 
 int get_int(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, int def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  const auto* i = n->as_integer();
-  if (!i || i->get() < -1000000000 || i->get() > 1000000000)
-    throw InputError(location(file, *n, path + "." + key), "expected an integer");
-  return static_cast<int>(i->get());
-}
-
-bool get_bool(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, bool def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  const auto* b = n->as_boolean();
-  if (!b) throw InputError(location(file, *n, path + "." + key), "expected true or false");
-  return b->get();
+  return detail::int_key(file, t, path, key, def, -1000000000, 1000000000, "expected an integer");
 }
 
 ExactOptions read_options(const std::string& file, const toml::table& t) {
   const std::string p = "exact";
-  check_keys(file, t, p,
-             {"states", "triplet", "residual_tolerance", "max_iterations", "trust_density", "convergence_check",
-              "pair_density", "batch"});
+  detail::check_keys(file, t, p,
+                     {"states", "triplet", "residual_tolerance", "max_iterations", "trust_density", "convergence_check",
+                      "pair_density", "batch"},
+                     /*list_valid=*/true);
   ExactOptions o;
   o.states = get_int(file, t, p, "states", o.states);
-  if (o.states < 1 || o.states > 64) throw InputError(loc_in(file, t, p, "states"), "must be between 1 and 64");
-  o.triplet = get_bool(file, t, p, "triplet", o.triplet);
-  o.residual_tolerance = get_number(file, t, p, "residual_tolerance", o.residual_tolerance);
+  if (o.states < 1 || o.states > 64) throw InputError(key_location(file, t, p, "states"), "must be between 1 and 64");
+  o.triplet = bool_key(file, t, p, "triplet", o.triplet);
+  o.residual_tolerance = number_key(file, t, p, "residual_tolerance", o.residual_tolerance);
   if (!(o.residual_tolerance > 0 && o.residual_tolerance <= 1e-4))
-    throw InputError(loc_in(file, t, p, "residual_tolerance"),
+    throw InputError(key_location(file, t, p, "residual_tolerance"),
                      "must be in (0, 1e-4] hartree (energies are converged to about residual^2 / gap)");
   o.max_iterations = get_int(file, t, p, "max_iterations", o.max_iterations);
-  if (o.max_iterations < 1) throw InputError(loc_in(file, t, p, "max_iterations"), "must be >= 1");
-  o.trust_density = get_number(file, t, p, "trust_density", o.trust_density);
+  if (o.max_iterations < 1) throw InputError(key_location(file, t, p, "max_iterations"), "must be >= 1");
+  o.trust_density = number_key(file, t, p, "trust_density", o.trust_density);
   if (!(o.trust_density > 0 && o.trust_density < 1))
-    throw InputError(loc_in(file, t, p, "trust_density"), "must be in (0, 1) electrons/bohr");
-  o.convergence_check = get_bool(file, t, p, "convergence_check", o.convergence_check);
-  o.pair_density = get_bool(file, t, p, "pair_density", o.pair_density);
+    throw InputError(key_location(file, t, p, "trust_density"), "must be in (0, 1) electrons/bohr");
+  o.convergence_check = bool_key(file, t, p, "convergence_check", o.convergence_check);
+  o.pair_density = bool_key(file, t, p, "pair_density", o.pair_density);
   return o;
 }
 
@@ -183,9 +142,10 @@ Batch read_batch(const std::string& file, const toml::node& bn) {
   const std::string p = "exact.batch";
   const toml::table* t = bn.as_table();
   if (!t) throw InputError(location(file, bn, p), "expected an [exact.batch] table with parameter and values");
-  check_keys(file, *t, p, {"parameter", "values", "start", "stop", "count", "fixed_electrons"});
+  detail::check_keys(file, *t, p, {"parameter", "values", "start", "stop", "count", "fixed_electrons"},
+                     /*list_valid=*/true);
   Batch b;
-  b.fixed_electrons = get_bool(file, *t, p, "fixed_electrons", b.fixed_electrons);
+  b.fixed_electrons = bool_key(file, *t, p, "fixed_electrons", b.fixed_electrons);
   const toml::node* pn = t->get("parameter");
   if (!pn) throw InputError(location(file, *t, p + ".parameter"), "a batch needs parameter = \"path\" (e.g. \"nucleus[0].charge\")");
   b.parameter_at = location(file, *pn, p + ".parameter");
@@ -224,26 +184,24 @@ Batch read_batch(const std::string& file, const toml::node& bn) {
     int i = 0;
     for (const auto& e : *a) {
       const std::string key = p + ".values[" + std::to_string(i++) + "]";
-      auto v = e.value<double>();
-      if (!e.is_number() || !v || !std::isfinite(*v)) throw InputError(location(file, e, key), "expected a finite number");
-      b.values.push_back(*v);
+      b.values.push_back(detail::finite_number(file, e, key));
       b.value_at.push_back(location(file, e, key));
     }
     if (b.values.empty()) throw InputError(location(file, *vn, p + ".values"), "the list of values is empty");
   } else if (has_range) {
     for (const char* k : {"start", "stop", "count"})
       if (!t->contains(k)) throw InputError(location(file, *t, p + "." + k), std::string("a range needs start, stop and count (") + k + " is missing)");
-    const double start = get_number(file, *t, p, "start", 0.0), stop = get_number(file, *t, p, "stop", 0.0);
+    const double start = number_key(file, *t, p, "start", 0.0), stop = number_key(file, *t, p, "stop", 0.0);
     const int count = get_int(file, *t, p, "count", 0);
-    if (count < 1 || count > 10000) throw InputError(loc_in(file, *t, p, "count"), "must be between 1 and 10000");
-    if (count == 1 && start != stop) throw InputError(loc_in(file, *t, p, "count"), "count = 1 needs start = stop");
+    if (count < 1 || count > 10000) throw InputError(key_location(file, *t, p, "count"), "must be between 1 and 10000");
+    if (count == 1 && start != stop) throw InputError(key_location(file, *t, p, "count"), "count = 1 needs start = stop");
     for (int i = 0; i < count; ++i) {
       // Rounded to 12 significant digits, so that 1 + 2 * 2/10 is written as 1.4.
       const double v = count == 1 ? start : start + (stop - start) * i / (count - 1);
       char buf[32];
       std::snprintf(buf, sizeof buf, "%.12g", v);
       b.values.push_back(std::strtod(buf, nullptr));
-      b.value_at.push_back(loc_in(file, *t, p, "start"));
+      b.value_at.push_back(key_location(file, *t, p, "start"));
     }
   } else {
     throw InputError(location(file, *t, p + ".values"), "a batch needs values = [...] or start, stop and count");
@@ -285,27 +243,27 @@ std::string to_text(const toml::table& t) {
 void check_system_scope(const std::string& file, const toml::table& t, const SystemSpec& s, const std::string& path,
                         ExactInput& in) {
   if (s.geometry != Geometry::Line)
-    throw InputError(loc_in(file, t, path, "kind"),
+    throw InputError(key_location(file, t, path, "kind"),
                      "exact solutions are for line systems (kind = \"line\") only; system '" + s.name + "' is an atom");
   for (const char* k : {"n_up", "n_down", "occupations", "extra_states"})
     if (t.contains(k))
-      throw InputError(loc_in(file, t, path, k),
+      throw InputError(key_location(file, t, path, k),
                        std::string("'") + k + "' is a Kohn–Sham setting and has no meaning for an exact solution; the exact "
                        "solver computes the singlet and triplet states itself (see [exact] states and triplet)");
   if (s.spin_polarized)
-    throw InputError(loc_in(file, t, path, "spin"),
+    throw InputError(key_location(file, t, path, "spin"),
                      "spin = \"polarized\" has no meaning for an exact solution (singlets and triplets are both computed)");
   const double ne = s.electron_count();
   if (std::abs(ne - std::round(ne)) > 1e-9 || (std::round(ne) != 1.0 && std::round(ne) != 2.0)) {
     double q = 0.0;
     for (const auto& nuc : s.line.nuclei) q += nuc.charge;
-    throw InputError(t.contains("charge") ? loc_in(file, t, path, "charge") : loc_in(file, t, path, "nucleus"),
+    throw InputError(t.contains("charge") ? key_location(file, t, path, "charge") : key_location(file, t, path, "nucleus"),
                      "system '" + s.name + "' has " + num(ne) + " electrons (nuclear charge " + num(q) + " minus charge " +
                          num(s.charge) + "); exact solutions need exactly 1 or 2 electrons");
   }
   for (const char* k : {"xc", "xc_weights", "xc_parameters"})
     if (t.contains(k)) {
-      in.warnings.push_back(loc_in(file, t, path, k).describe() + ": ignored by exact (no functional is used)");
+      in.warnings.push_back(key_location(file, t, path, k).describe() + ": ignored by exact (no functional is used)");
       break;
     }
 }
@@ -395,15 +353,7 @@ ExactInput parse_root(toml::table root, const std::string& file) {
 }
 
 ExactInput parse_text(const std::string& text, const std::string& name) {
-  toml::table root;
-  try {
-    root = toml::parse(text, std::string{name});
-  } catch (const toml::parse_error& e) {
-    const auto& s = e.source();
-    throw InputError(SourceLocation{name, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), ""},
-                     "TOML syntax error: " + std::string(e.description()));
-  }
-  return parse_root(std::move(root), name);
+  return parse_root(detail::parse_toml(text, name), name);
 }
 
 }  // namespace
@@ -411,11 +361,7 @@ ExactInput parse_text(const std::string& text, const std::string& name) {
 ExactInput parse_exact_input(const std::string& text, const std::string& name) { return parse_text(text, name); }
 
 ExactInput read_exact_input(const std::string& path) {
-  std::ifstream f(path, std::ios::binary);
-  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open input file");
-  std::stringstream ss;
-  ss << f.rdbuf();
-  return parse_text(ss.str(), path);
+  return parse_text(detail::read_text_file(path, "cannot open input file"), path);
 }
 
 }  // namespace stillpoint

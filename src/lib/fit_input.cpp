@@ -5,9 +5,7 @@
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
-#include <fstream>
 #include <map>
-#include <sstream>
 
 #include "fit_dataset.hpp"
 #include "grad_input_detail.hpp"
@@ -19,67 +17,21 @@ namespace stillpoint {
 
 namespace {
 
+using detail::bool_key;
+using detail::finite_number;
+using detail::key_location;
 using detail::location;
+using detail::number_key;
+using detail::string_key;
 
 // Normalization defaults (docs/fit.md, "Normalization"): an error of one scale costs one loss unit.
 constexpr double kEnergyScalePerElectron = 1e-3;  // hartree per electron, total energies
 constexpr double kEnergyScale = 1e-3;             // hartree, energy differences and eigenvalues
 constexpr double kDensityScale = 1e-2;            // relative L2 distance of densities
 
-SourceLocation at(const std::string& file, const toml::table& t, const std::string& path, const std::string& key) {
-  if (const toml::node* n = t.get(key)) return location(file, *n, path + "." + key);
-  return location(file, t, path + "." + key);
-}
-
-void check_keys(const std::string& file, const toml::table& t, const std::string& path,
-                const std::vector<std::string>& allowed) {
-  for (const auto& [k, v] : t) {
-    const std::string key(k.str());
-    if (std::find(allowed.begin(), allowed.end(), key) != allowed.end()) continue;
-    const std::string near = nearest_word(key, allowed);
-    std::string valid;
-    for (const auto& a : allowed) valid += (valid.empty() ? "" : ", ") + a;
-    throw InputError(location(file, v, path + "." + key), "unknown key" +
-                                                              (near.empty() ? std::string() : "; did you mean '" + near + "'?") +
-                                                              " (valid here: " + valid + ")");
-  }
-}
-
-double number(const std::string& file, const toml::node& n, const std::string& key) {
-  auto v = n.value<double>();
-  if (!n.is_number() || !v || !std::isfinite(*v)) throw InputError(location(file, n, key), "expected a finite number");
-  return *v;
-}
-
-double number_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key,
-                  double def) {
-  const toml::node* n = t.get(key);
-  return n ? number(file, *n, path + "." + key) : def;
-}
-
 int int_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, int def,
             int min) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  const auto* i = n->as_integer();
-  if (!i || i->get() < min || i->get() > 1000000000)
-    throw InputError(location(file, *n, path + "." + key), "expected an integer >= " + std::to_string(min));
-  return static_cast<int>(i->get());
-}
-
-bool bool_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, bool def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  if (const auto* b = n->as_boolean()) return b->get();
-  throw InputError(location(file, *n, path + "." + key), "expected true or false");
-}
-
-std::string string_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key,
-                       const std::string& def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  if (const auto* s = n->as_string()) return s->get();
-  throw InputError(location(file, *n, path + "." + key), "expected a string");
+  return detail::int_key(file, t, path, key, def, min, 1000000000, "expected an integer >= " + std::to_string(min));
 }
 
 // A per-field value: a number for every field of the block, or { field = number }.
@@ -87,10 +39,10 @@ std::optional<double> field_value(const std::string& file, const toml::table& bl
                                   const std::string& key, const ParameterRef& p) {
   const toml::node* n = block.get(key);
   if (!n) return std::nullopt;
-  if (n->is_number()) return number(file, *n, path + "." + key);
+  if (n->is_number()) return finite_number(file, *n, path + "." + key);
   if (const toml::table* t = n->as_table()) {
     for (const auto& [k, v] : *t)
-      if (std::string(k.str()) == p.field) return number(file, v, path + "." + key + "." + p.field);
+      if (std::string(k.str()) == p.field) return finite_number(file, v, path + "." + key + "." + p.field);
     return std::nullopt;
   }
   throw InputError(location(file, *n, path + "." + key), "expected a number, or a table { field = number }");
@@ -111,8 +63,6 @@ void check_field_table(const std::string& file, const toml::table& block, const 
 }
 
 Mesh mesh_of(const SystemSpec& s) { return s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z); }
-
-std::string set_name(bool validation) { return validation ? "validation" : "training"; }
 
 FitWorkflow parse_root(toml::table& root, const std::string& file) {
   FitWorkflow wf;
@@ -136,19 +86,20 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
     if (!ft) throw InputError(location(file, *fn, "fit"), "expected a [fit] table");
   }
   const std::string fp = "fit";
-  check_keys(file, *ft, fp,
-             {"optimizer", "max_iterations", "gradient_tolerance", "step_tolerance", "loss_tolerance", "lbfgs_rank",
-              "threads", "checkpoint_every", "validation_every", "normalize", "validation_systems", "uncertainties",
-              "uncertainty_max_parameters", "ill_conditioned", "plots"});
+  detail::check_keys(file, *ft, fp,
+                     {"optimizer", "max_iterations", "gradient_tolerance", "step_tolerance", "loss_tolerance", "lbfgs_rank",
+                      "threads", "checkpoint_every", "validation_every", "normalize", "validation_systems", "uncertainties",
+                      "uncertainty_max_parameters", "ill_conditioned", "plots"},
+                     /*list_valid=*/true);
   const std::string opt = string_key(file, *ft, fp, "optimizer", "lbfgs");
   if (opt == "levenberg_marquardt" || opt == "lm")
     o.optimizer = FitOptions::Optimizer::LevenbergMarquardt;
   else if (opt != "lbfgs")
-    throw InputError(at(file, *ft, fp, "optimizer"), "optimizer must be \"lbfgs\" or \"levenberg_marquardt\"");
+    throw InputError(key_location(file, *ft, fp, "optimizer"), "optimizer must be \"lbfgs\" or \"levenberg_marquardt\"");
   o.max_iterations = int_key(file, *ft, fp, "max_iterations", o.max_iterations, 0);
   for (const char* k : {"gradient_tolerance", "step_tolerance", "loss_tolerance", "ill_conditioned"}) {
     const double v = number_key(file, *ft, fp, k, 1.0);
-    if (!(v > 0)) throw InputError(at(file, *ft, fp, k), "must be positive");
+    if (!(v > 0)) throw InputError(key_location(file, *ft, fp, k), "must be positive");
   }
   o.gradient_tolerance = number_key(file, *ft, fp, "gradient_tolerance", o.gradient_tolerance);
   o.step_tolerance = number_key(file, *ft, fp, "step_tolerance", o.step_tolerance);
@@ -231,20 +182,21 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
     info.block = b;
     const double floor = p.kind == ParameterRef::Kind::XcParameter ? 0.1 : 1.0;
     info.scale = number_key(file, t, path, "scale", std::max(std::abs(theta(i)), floor));
-    if (!(info.scale > 0)) throw InputError(at(file, t, path, "scale"), "must be positive (the parameter's typical size)");
+    if (!(info.scale > 0))
+      throw InputError(key_location(file, t, path, "scale"), "must be positive (the parameter's typical size)");
     info.prior = field_value(file, t, path, "prior", p);
     info.prior_weight = number_key(file, t, path, "prior_weight", info.prior ? 1.0 : 0.0);
-    if (info.prior_weight < 0) throw InputError(at(file, t, path, "prior_weight"), "must be >= 0");
+    if (info.prior_weight < 0) throw InputError(key_location(file, t, path, "prior_weight"), "must be >= 0");
     if (t.contains("prior_weight") && !info.prior) {
       if (p.kind == ParameterRef::Kind::GridPotential)
         info.prior = 0.0;  // pull toward zero: plain Tikhonov regularization of the potential
       else
-        throw InputError(at(file, t, path, "prior_weight"), "prior_weight needs prior = value");
+        throw InputError(key_location(file, t, path, "prior_weight"), "prior_weight needs prior = value");
     }
     info.smoothness = number_key(file, t, path, "smoothness", 0.0);
-    if (info.smoothness < 0) throw InputError(at(file, t, path, "smoothness"), "must be >= 0");
+    if (info.smoothness < 0) throw InputError(key_location(file, t, path, "smoothness"), "must be >= 0");
     if (info.smoothness > 0 && p.kind != ParameterRef::Kind::GridPotential)
-      throw InputError(at(file, t, path, "smoothness"), "smoothness applies to grid_potential parameters only");
+      throw InputError(key_location(file, t, path, "smoothness"), "smoothness applies to grid_potential parameters only");
     info.published = field_value(file, t, path, "published", p);
     info.published_source = string_key(file, t, path, "published_source", "");
     spec.parameters.push_back(p);
@@ -266,9 +218,9 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
     else if (set == "validation")
       info.validation = true;
     else if (set != "training")
-      throw InputError(at(file, t, path, "set"), "set must be \"training\" or \"validation\"");
+      throw InputError(key_location(file, t, path, "set"), "set must be \"training\" or \"validation\"");
     info.user_weight = L.weight;
-    if (L.weight < 0) throw InputError(at(file, t, path, "weight"), "weights must be >= 0");
+    if (L.weight < 0) throw InputError(key_location(file, t, path, "weight"), "weights must be >= 0");
     const SystemSpec& s = g.base.systems[L.system];
     double scale = 0.0;
     switch (L.kind) {
@@ -284,7 +236,7 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
         break;
     }
     scale = number_key(file, t, path, "scale", scale);
-    if (!(scale > 0)) throw InputError(at(file, t, path, "scale"), "must be positive");
+    if (!(scale > 0)) throw InputError(key_location(file, t, path, "scale"), "must be positive");
     if (L.kind == LossTerm::Kind::Density) {
       const Mesh mesh = mesh_of(s);
       const Eigen::VectorXd& W = mesh.density_weight();
@@ -292,7 +244,8 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
       for (std::size_t k = 0; k < L.reference.size(); ++k)
         n2 += W(static_cast<Eigen::Index>(k)) * (L.region.empty() ? 1.0 : L.region[k]) * L.reference[k] * L.reference[k];
       info.reference_norm = std::sqrt(n2);
-      if (!(n2 > 0)) throw InputError(at(file, t, path, "reference"), "the reference density is zero where the term counts");
+      if (!(n2 > 0))
+        throw InputError(key_location(file, t, path, "reference"), "the reference density is zero where the term counts");
     }
     if (normalize) {
       info.scale = scale;
@@ -324,14 +277,15 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
     if (!any) {
       const toml::table& t = *parsed.parameter_blocks[spec.info[j].block];
       const std::string path = "parameter[" + std::to_string(spec.info[j].block) + "]";
-      throw InputError(at(file, t, path, "system"), "parameter '" + p.name + "' acts only on systems outside the training "
-                                                    "set, so the training loss does not depend on it; fix it or add training terms");
+      throw InputError(key_location(file, t, path, "system"),
+                       "parameter '" + p.name + "' acts only on systems outside the training set, so the training loss "
+                       "does not depend on it; fix it or add training terms");
     }
   }
   if (o.optimizer == FitOptions::Optimizer::LevenbergMarquardt)
     for (std::size_t i = 0; i < g.loss.size(); ++i)
       if (g.loss[i].kind != LossTerm::Kind::Density && !g.loss[i].target)
-        throw InputError(at(file, *parsed.loss_tables[i], "loss[" + std::to_string(i) + "]", "target"),
+        throw InputError(key_location(file, *parsed.loss_tables[i], "loss[" + std::to_string(i) + "]", "target"),
                          "levenberg_marquardt minimizes a sum of squares: this term needs a target (or use optimizer = \"lbfgs\")");
   spec.systems = g.base.systems;
   spec.gradient = g.options;
@@ -347,23 +301,12 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
 }  // namespace
 
 FitWorkflow parse_fit_workflow(const std::string& text, const std::string& name) {
-  toml::table root;
-  try {
-    root = toml::parse(text, std::string{name});
-  } catch (const toml::parse_error& e) {
-    const auto& s = e.source();
-    throw InputError(SourceLocation{name, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), ""},
-                     "TOML syntax error: " + std::string(e.description()));
-  }
+  toml::table root = detail::parse_toml(text, name);
   return parse_root(root, name);
 }
 
 FitWorkflow read_fit_workflow(const std::string& path) {
-  std::ifstream f(path, std::ios::binary);
-  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open the workflow file");
-  std::stringstream ss;
-  ss << f.rdbuf();
-  return parse_fit_workflow(ss.str(), path);
+  return parse_fit_workflow(detail::read_text_file(path, "cannot open the workflow file"), path);
 }
 
 }  // namespace stillpoint

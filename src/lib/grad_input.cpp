@@ -5,7 +5,6 @@
 #include <algorithm>
 #include <filesystem>
 #include <fstream>
-#include <sstream>
 
 #include "grad_input_detail.hpp"
 #include "input_detail.hpp"
@@ -17,18 +16,11 @@ namespace stillpoint {
 
 namespace {
 
+using detail::concat;
+using detail::key_location;
 using detail::location;
-
-void check_keys(const std::string& file, const toml::table& t, const std::string& path,
-                const std::vector<std::string>& allowed) {
-  for (const auto& [k, v] : t) {
-    const std::string key(k.str());
-    if (std::find(allowed.begin(), allowed.end(), key) != allowed.end()) continue;
-    const std::string near = nearest_word(key, allowed);
-    throw InputError(location(file, v, path + "." + key),
-                     "unknown key" + (near.empty() ? std::string() : "; did you mean '" + near + "'?"));
-  }
-}
+using detail::number_key;
+using detail::string_key;
 
 int system_index(const GradInput& g, const std::string& file, const toml::node& n, const std::string& key) {
   auto name = n.value<std::string>();
@@ -40,28 +32,6 @@ int system_index(const GradInput& g, const std::string& file, const toml::node& 
   const std::string near = nearest_word(*name, names);
   throw InputError(location(file, n, key),
                    "no system named '" + *name + "'" + (near.empty() ? "" : "; did you mean '" + near + "'?"));
-}
-
-double number(const std::string& file, const toml::table& t, const std::string& key, const std::string& path, double def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  auto v = n->value<double>();
-  if (!v || !std::isfinite(*v)) throw InputError(location(file, *n, path + "." + key), "expected a finite number");
-  return *v;
-}
-
-std::string string(const std::string& file, const toml::table& t, const std::string& key, const std::string& path,
-                   const std::string& def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  auto v = n->value<std::string>();
-  if (!v) throw InputError(location(file, *n, path + "." + key), "expected a string");
-  return *v;
-}
-
-std::vector<std::string> with(std::vector<std::string> a, const std::vector<std::string>& b) {
-  a.insert(a.end(), b.begin(), b.end());
-  return a;
 }
 
 void read_parameters(detail::GradParsed& parsed, const std::string& file, const toml::node& node,
@@ -84,9 +54,11 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
         p.block_of.resize(p.input.parameters.size(), static_cast<int>(p.parameter_blocks.size()) - 1);
       }
     } mark{parsed, t, g.parameters.size()};
-    check_keys(file, *t, path, with({"kind", "system", "term", "index", "fields", "name", "lower", "upper"}, extras.parameter_keys));
+    detail::check_keys(file, *t, path,
+                       concat({"kind", "system", "term", "index", "fields", "name", "lower", "upper"}, extras.parameter_keys),
+                       /*list_valid=*/false);
     ParameterRef base;
-    const std::string kind = string(file, *t, "kind", path, "");
+    const std::string kind = string_key(file, *t, path, "kind", "");
     std::vector<std::string> all_fields;
     if (kind == "xc_weight") {
       base.kind = ParameterRef::Kind::XcWeight;
@@ -105,14 +77,13 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
     } else if (kind == "xc_parameter") {
       base.kind = ParameterRef::Kind::XcParameter;
     } else {
-      const toml::node* kn = t->get("kind");
-      throw InputError(kn ? location(file, *kn, path + ".kind") : location(file, *t, path + ".kind"),
+      throw InputError(key_location(file, *t, path, "kind"),
                        "kind must be xc_weight, xc_parameter, gaussian, harmonic, nucleus or grid_potential");
     }
     if (const toml::node* s = t->get("system")) base.system = system_index(g, file, *s, path + ".system");
     const std::string sys_name = base.system >= 0 ? g.base.systems[base.system].name : "all";
-    base.lower = number(file, *t, "lower", path, base.lower);
-    base.upper = number(file, *t, "upper", path, base.upper);
+    base.lower = number_key(file, *t, path, "lower", base.lower);
+    base.upper = number_key(file, *t, path, "upper", base.upper);
     const SystemSpec& ref = g.base.systems[base.system >= 0 ? base.system : 0];
     if (base.kind == ParameterRef::Kind::XcWeight || base.kind == ParameterRef::Kind::XcParameter) {
       const toml::node* tn = t->get("term");
@@ -129,7 +100,7 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
       if (base.index < 0 || base.index >= static_cast<int>(ref.xc.size()))
         throw InputError(location(file, *tn, path + ".term"), "no such xc term");
       if (base.kind == ParameterRef::Kind::XcWeight) {
-        base.name = string(file, *t, "name", path, "w_" + ref.xc[base.index]);
+        base.name = string_key(file, *t, path, "name", "w_" + ref.xc[base.index]);
         g.parameters.push_back(base);
         continue;
       }
@@ -168,7 +139,7 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
           fields.push_back(*fs);
         }
       }
-      const std::string prefix = string(file, *t, "name", path, ref.xc[base.index]);
+      const std::string prefix = string_key(file, *t, path, "name", ref.xc[base.index]);
       for (const auto& fname : fields) {
         ParameterRef p = base;
         p.sub = static_cast<int>(std::find(pnames.begin(), pnames.end(), fname) - pnames.begin());
@@ -182,7 +153,7 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
       if (base.system < 0 && g.base.systems.size() > 1)
         throw InputError(location(file, *t, path + ".system"), "grid_potential needs system = \"name\"");
       const Mesh mesh = ref.geometry == Geometry::Line ? Mesh::line(ref.grid) : Mesh::radial(ref.grid, ref.atom.Z);
-      const std::string prefix = string(file, *t, "name", path, "v");
+      const std::string prefix = string_key(file, *t, path, "name", "v");
       for (int k = 1; k < mesh.num_nodes() - 1; ++k) {
         ParameterRef p = base;
         p.index = k;
@@ -212,7 +183,7 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
         fields.push_back(*s);
       }
     }
-    const std::string prefix = string(file, *t, "name", path, kind + std::to_string(base.index));
+    const std::string prefix = string_key(file, *t, path, "name", kind + std::to_string(base.index));
     for (const auto& f : fields) {
       ParameterRef p = base;
       p.field = f;
@@ -350,11 +321,12 @@ void read_loss(detail::GradParsed& parsed, const std::string& file, const toml::
     const std::string path = "loss[" + std::to_string(i++) + "]";
     const toml::table* t = e.as_table();
     if (!t) throw InputError(location(file, e, path), "expected a table");
-    check_keys(file, *t, path,
-               with({"kind", "system", "minus", "reference", "region", "state", "spin", "target", "weight", "name"},
-                    extras.loss_keys));
+    detail::check_keys(file, *t, path,
+                       concat({"kind", "system", "minus", "reference", "region", "state", "spin", "target", "weight", "name"},
+                              extras.loss_keys),
+                       /*list_valid=*/false);
     LossTerm L;
-    const std::string kind = string(file, *t, "kind", path, "");
+    const std::string kind = string_key(file, *t, path, "kind", "");
     const toml::node* sn = t->get("system");
     if (sn)
       L.system = system_index(g, file, *sn, path + ".system");
@@ -362,12 +334,12 @@ void read_loss(detail::GradParsed& parsed, const std::string& file, const toml::
       L.system = 0;
     else
       throw InputError(location(file, *t, path + ".system"), "name the system this term is about");
-    L.weight = number(file, *t, "weight", path, 1.0);
-    if (t->contains("target")) L.target = number(file, *t, "target", path, 0.0);
-    L.name = string(file, *t, "name", path, kind + ":" + g.base.systems[L.system].name);
+    L.weight = number_key(file, *t, path, "weight", 1.0);
+    if (t->contains("target")) L.target = number_key(file, *t, path, "target", 0.0);
+    L.name = string_key(file, *t, path, "name", kind + ":" + g.base.systems[L.system].name);
     if (kind == "density") {
       L.kind = LossTerm::Kind::Density;
-      const std::string ref = string(file, *t, "reference", path, "");
+      const std::string ref = string_key(file, *t, path, "reference", "");
       if (ref.empty()) throw InputError(location(file, *t, path + ".reference"), "a density term needs reference = \"file.csv\"");
       std::filesystem::path rp(ref);
       if (rp.is_relative()) rp = std::filesystem::path(file).parent_path() / rp;
@@ -397,13 +369,12 @@ void read_loss(detail::GradParsed& parsed, const std::string& file, const toml::
       L.system_b = system_index(g, file, *mn, path + ".minus");
     } else if (kind == "eigenvalue") {
       L.kind = LossTerm::Kind::Eigenvalue;
-      L.state = string(file, *t, "state", path, "homo");
-      const std::string spin = string(file, *t, "spin", path, "up");
+      L.state = string_key(file, *t, path, "state", "homo");
+      const std::string spin = string_key(file, *t, path, "spin", "up");
       if (spin != "up" && spin != "down") throw InputError(location(file, *t->get("spin"), path + ".spin"), "spin must be up or down");
       L.spin = spin == "up" ? 0 : 1;
     } else {
-      const toml::node* kn = t->get("kind");
-      throw InputError(kn ? location(file, *kn, path + ".kind") : location(file, *t, path + ".kind"),
+      throw InputError(key_location(file, *t, path, "kind"),
                        "kind must be density, energy, eigenvalue or energy_difference");
     }
     g.loss.push_back(L);
@@ -474,25 +445,26 @@ GradParsed parse_grad_root(const toml::table& root, const std::string& file, con
   GradInput& g = parsed.input;
   std::vector<std::string> top{"parameter", "loss", "initial_model"};
   if (extras.grad_table) top.push_back("grad");
-  g.base = detail::parse_solve_root(root, file, with(top, extras.top_keys));
+  g.base = detail::parse_solve_root(root, file, concat(top, extras.top_keys));
   g.options.scf = g.base.scf;
   g.options.density_threshold = g.base.density_threshold;
   if (const toml::node* gn = extras.grad_table ? root.get("grad") : nullptr) {
     const toml::table* t = gn->as_table();
     if (!t) throw InputError(location(file, *gn, "grad"), "expected a [grad] table");
-    check_keys(file, *t, "grad",
-               {"mode", "verify", "verify_tolerance", "verify_floor", "verify_step", "chi0", "krylov_tolerance"});
-    const std::string mode = string(file, *t, "mode", "grad", "adjoint");
+    detail::check_keys(file, *t, "grad",
+                       {"mode", "verify", "verify_tolerance", "verify_floor", "verify_step", "chi0", "krylov_tolerance"},
+                       /*list_valid=*/false);
+    const std::string mode = string_key(file, *t, "grad", "mode", "adjoint");
     if (mode == "tangent")
       g.options.mode = GradientOptions::Mode::Tangent;
     else if (mode != "adjoint")
       throw InputError(location(file, *t->get("mode"), "grad.mode"), "mode must be adjoint or tangent");
     if (const toml::node* v = t->get("verify")) g.verify = v->value<bool>().value_or(false);
-    g.verify_tolerance = number(file, *t, "verify_tolerance", "grad", g.verify_tolerance);
-    g.verify_floor = number(file, *t, "verify_floor", "grad", g.verify_floor);
-    g.verify_step = number(file, *t, "verify_step", "grad", g.verify_step);
-    g.options.response.krylov_tolerance = number(file, *t, "krylov_tolerance", "grad", g.options.response.krylov_tolerance);
-    const std::string chi0 = string(file, *t, "chi0", "grad", "auto");
+    g.verify_tolerance = number_key(file, *t, "grad", "verify_tolerance", g.verify_tolerance);
+    g.verify_floor = number_key(file, *t, "grad", "verify_floor", g.verify_floor);
+    g.verify_step = number_key(file, *t, "grad", "verify_step", g.verify_step);
+    g.options.response.krylov_tolerance = number_key(file, *t, "grad", "krylov_tolerance", g.options.response.krylov_tolerance);
+    const std::string chi0 = string_key(file, *t, "grad", "chi0", "auto");
     if (chi0 == "sum_over_states")
       g.options.response.chi0 = ResponseOptions::Chi0Method::SumOverStates;
     else if (chi0 == "sternheimer")
@@ -517,10 +489,7 @@ void check_parameter_bounds(const GradParsed& parsed, const std::string& file) {
     const ParameterRef& p = g.parameters[i];
     const toml::table& t = *parsed.parameter_blocks[parsed.block_of[i]];
     const std::string path = "parameter[" + std::to_string(parsed.block_of[i]) + "]";
-    auto where = [&](const char* key) {
-      const toml::node* n = t.get(key);
-      return n ? location(file, *n, path + "." + key) : location(file, t, path + "." + key);
-    };
+    auto where = [&](const char* key) { return key_location(file, t, path, key); };
     if (!(p.lower < p.upper))
       throw InputError(where("upper"), "the bounds of '" + p.name + "' are empty: lower = " + std::to_string(p.lower) +
                                            " is not below upper = " + std::to_string(p.upper));
@@ -535,25 +504,15 @@ void check_parameter_bounds(const GradParsed& parsed, const std::string& file) {
 }  // namespace detail
 
 GradInput parse_grad_input(const std::string& text, const std::string& name) {
-  toml::table root;
-  try {
-    root = toml::parse(text, std::string{name});
-  } catch (const toml::parse_error& e) {
-    const auto& s = e.source();
-    throw InputError(SourceLocation{name, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), ""},
-                     std::string(e.description()));
-  }
+  // Unlike the other readers, grad has never prefixed syntax errors with "TOML syntax error: ".
+  const toml::table root = detail::parse_toml(text, name, "");
   detail::GradParsed parsed = detail::parse_grad_root(root, name, {});
   detail::check_parameter_bounds(parsed, name);
   return std::move(parsed.input);
 }
 
 GradInput read_grad_input(const std::string& path) {
-  std::ifstream f(path, std::ios::binary);
-  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open input file");
-  std::stringstream ss;
-  ss << f.rdbuf();
-  return parse_grad_input(ss.str(), path);
+  return parse_grad_input(detail::read_text_file(path, "cannot open input file"), path);
 }
 
 }  // namespace stillpoint

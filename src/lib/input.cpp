@@ -9,9 +9,7 @@
 #include <cctype>
 #include <climits>
 #include <cmath>
-#include <cstdio>
 #include <filesystem>
-#include <fstream>
 #include <limits>
 #include <map>
 #include <sstream>
@@ -35,11 +33,7 @@ struct Ctx {
   fs::path dir;
 };
 
-std::string num(double v) {
-  char buf[40];
-  std::snprintf(buf, sizeof buf, "%.6g", v);
-  return buf;
-}
+std::string num(double v) { return detail::format_number(v, 6); }
 
 std::string join(const std::string& path, const std::string& key) { return path.empty() ? key : path + "." + key; }
 
@@ -47,12 +41,10 @@ SourceLocation at_region(const Ctx& c, const toml::source_region& s, const std::
   return SourceLocation{c.file, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), key};
 }
 
-SourceLocation loc(const Ctx& c, const toml::node& n, const std::string& key) { return at_region(c, n.source(), key); }
+SourceLocation loc(const Ctx& c, const toml::node& n, const std::string& key) { return detail::location(c.file, n, key); }
 
-/// The value of `key` in `t` if it is there, otherwise the table (a missing or defaulted key).
 SourceLocation loc_in(const Ctx& c, const toml::table& t, const std::string& path, const std::string& key) {
-  if (const toml::node* n = t.get(key)) return loc(c, *n, join(path, key));
-  return loc(c, t, join(path, key));
+  return detail::key_location(c.file, t, path, key);
 }
 
 /// Errors thrown by library functions that do not know where their argument came from get
@@ -77,15 +69,19 @@ void check_keys(const Ctx& c, const toml::table& t, const std::string& path, con
   }
 }
 
+// Kept apart from detail::finite_number: solve inputs have always said "expected a number"
+// for a value of the wrong type and "must be a finite number" for inf or nan.
+double number_at(const Ctx& c, const toml::node& n, const std::string& key) {
+  if (!n.is_number()) throw InputError(loc(c, n, key), "expected a number");
+  // toml++ gives no double for an integer that a double cannot hold exactly (beyond 2^53).
+  const auto v = n.value<double>();
+  if (!v || !std::isfinite(*v)) throw InputError(loc(c, n, key), "must be a finite number");
+  return *v;
+}
+
 double get_number(const Ctx& c, const toml::table& t, const std::string& path, const std::string& key, double def) {
   const toml::node* n = t.get(key);
-  if (!n) return def;
-  if (n->is_number()) {
-    const double v = *n->value<double>();
-    if (!std::isfinite(v)) throw InputError(loc(c, *n, join(path, key)), "must be a finite number");
-    return v;
-  }
-  throw InputError(loc(c, *n, join(path, key)), "expected a number");
+  return n ? number_at(c, *n, join(path, key)) : def;
 }
 
 int get_int(const Ctx& c, const toml::table& t, const std::string& path, const std::string& key, int def) {
@@ -103,33 +99,12 @@ int get_int(const Ctx& c, const toml::table& t, const std::string& path, const s
   throw InputError(loc(c, *n, join(path, key)), "expected an integer");
 }
 
-bool get_bool(const Ctx& c, const toml::table& t, const std::string& path, const std::string& key, bool def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  if (const auto* b = n->as_boolean()) return b->get();
-  throw InputError(loc(c, *n, join(path, key)), "expected true or false");
-}
-
-std::string get_string(const Ctx& c, const toml::table& t, const std::string& path, const std::string& key,
-                       const std::string& def) {
-  const toml::node* n = t.get(key);
-  if (!n) return def;
-  if (const auto* s = n->as_string()) return s->get();
-  throw InputError(loc(c, *n, join(path, key)), "expected a string");
-}
-
 std::vector<double> number_list(const Ctx& c, const toml::node& n, const std::string& key) {
   const toml::array* a = n.as_array();
   if (!a) throw InputError(loc(c, n, key), "expected a list of numbers, e.g. [2, 1]");
   std::vector<double> out;
   int i = 0;
-  for (const auto& e : *a) {
-    const std::string ek = key + "[" + std::to_string(i++) + "]";
-    if (!e.is_number()) throw InputError(loc(c, e, ek), "expected a number");
-    const double v = *e.value<double>();
-    if (!std::isfinite(v)) throw InputError(loc(c, e, ek), "must be a finite number");
-    out.push_back(v);
-  }
+  for (const auto& e : *a) out.push_back(number_at(c, e, key + "[" + std::to_string(i++) + "]"));
   return out;
 }
 
@@ -144,7 +119,7 @@ ScfOptions read_scf(const Ctx& c, const toml::table& t, ScfOptions o, double& th
   o.eigenvalue_tolerance = get_number(c, t, p, "eigenvalue_tolerance", o.eigenvalue_tolerance);
   o.mixing = get_number(c, t, p, "mixing", o.mixing);
   o.history = get_int(c, t, p, "history", o.history);
-  o.verbose = get_bool(c, t, p, "verbose", o.verbose);
+  o.verbose = detail::bool_key(c.file, t, p, "verbose", o.verbose);
   threshold = get_number(c, t, p, "density_threshold", threshold);
   if (o.max_iterations < 1) throw InputError(loc_in(c, t, p, "max_iterations"), "must be >= 1");
   for (const char* k : {"potential_tolerance", "energy_tolerance", "eigenvalue_tolerance"})
@@ -206,7 +181,7 @@ GridInput read_grid(const Ctx& c, const toml::table& system, Geometry g, const s
              is_radial ? "this grid setting belongs to line systems; atoms use degree, elements, first_element, "
                          "first_element_over_z, r_max"
                        : "this grid setting belongs to atoms; line systems use degree, element_size, half_width");
-  gi.name = get_string(c, *t, path, "preset", "default");
+  gi.name = detail::string_key(c.file, *t, path, "preset", "default");
   gi.spec = preset_at(g, gi.name, loc_in(c, *t, path, "preset"));
   if (t->size() > (t->contains("preset") ? 1u : 0u)) gi.name += " (modified)";
   MeshSpec& s = gi.spec;
@@ -215,7 +190,7 @@ GridInput read_grid(const Ctx& c, const toml::table& system, Geometry g, const s
   if (is_radial) {
     s.elements = get_int(c, *t, path, "elements", s.elements);
     s.first_element = get_number(c, *t, path, "first_element", s.first_element);
-    s.first_element_over_z = get_bool(c, *t, path, "first_element_over_z", s.first_element_over_z);
+    s.first_element_over_z = detail::bool_key(c.file, *t, path, "first_element_over_z", s.first_element_over_z);
     s.r_max = get_number(c, *t, path, "r_max", s.r_max);
     if (s.elements < 2) throw InputError(loc_in(c, *t, path, "elements"), "a radial grid needs at least 2 elements");
     if (!(s.first_element > 0)) throw InputError(loc_in(c, *t, path, "first_element"), "must be positive (bohr)");
@@ -339,11 +314,6 @@ const std::vector<std::string> kAtomKeys{"element", "Z", "configuration"};
 const std::vector<std::string> kLineKeys{"nucleus", "potential", "electron_softening", "interacting",
                                          "nucleus_softening", "n_up", "n_down", "occupations", "extra_states"};
 
-std::vector<std::string> concat(std::vector<std::string> a, const std::vector<std::string>& b) {
-  a.insert(a.end(), b.begin(), b.end());
-  return a;
-}
-
 void read_atom(const Ctx& c, const toml::table& t, const std::string& path, SystemSpec& s, const GridInput& grid) {
   const toml::node* el = t.get("element");
   const toml::node* z = t.get("Z");
@@ -405,7 +375,7 @@ void read_atom(const Ctx& c, const toml::table& t, const std::string& path, Syst
 void read_line(const Ctx& c, const toml::table& t, const std::string& path, SystemSpec& s, const GridInput& grid) {
   LineSystem& ls = s.line;
   ls.electron_softening = get_number(c, t, path, "electron_softening", ls.electron_softening);
-  ls.interacting = get_bool(c, t, path, "interacting", ls.interacting);
+  ls.interacting = detail::bool_key(c.file, t, path, "interacting", ls.interacting);
   if (t.contains("nucleus_softening")) {
     ls.nucleus_softening = get_number(c, t, path, "nucleus_softening", 0.0);
     if (ls.nucleus_softening < 0) throw InputError(loc_in(c, t, path, "nucleus_softening"), "must be >= 0 (bohr)");
@@ -449,7 +419,7 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
       const toml::table* pt = e.as_table();
       const std::string pp = path + ".potential[" + std::to_string(i++) + "]";
       if (!pt) throw InputError(loc(c, e, pp), "expected a table");
-      const std::string k = get_string(c, *pt, pp, "kind", "");
+      const std::string k = detail::string_key(c.file, *pt, pp, "kind", "");
       const std::vector<std::string> kinds{"harmonic", "gaussian", "table"};
       ExternalTerm term;
       if (k == "harmonic") {
@@ -466,7 +436,7 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
         if (!(term.width > 0)) throw InputError(loc_in(c, *pt, pp, "width"), "must be positive (bohr)");
       } else if (k == "table") {
         check_keys(c, *pt, pp, {"kind", "file"});
-        const std::string f = get_string(c, *pt, pp, "file", "");
+        const std::string f = detail::string_key(c.file, *pt, pp, "file", "");
         if (f.empty()) throw InputError(loc_in(c, *pt, pp, "file"), "a table potential needs file = \"path.csv\"");
         fs::path fp(f);
         if (fp.is_relative()) fp = c.dir / fp;
@@ -588,9 +558,7 @@ void read_xc_parameters(const Ctx& c, const toml::table& t, const std::string& p
           const std::string near = nearest_word(pname, names);
           throw InputError(loc(c, pv, kp + "." + pname), "unknown parameter" + (near.empty() ? std::string() : "; did you mean '" + near + "'?"));
         }
-        auto val = pv.value<double>();
-        if (!val || !std::isfinite(*val)) throw InputError(loc(c, pv, kp + "." + pname), "expected a finite number");
-        values[static_cast<std::size_t>(pi - names.begin())] = *val;
+        values[static_cast<std::size_t>(pi - names.begin())] = detail::finite_number(c.file, pv, kp + "." + pname);
       }
     } else {
       throw InputError(loc(c, v, kp), "expected a table of name = value or a list of numbers");
@@ -603,28 +571,28 @@ SystemSpec read_system(const Ctx& c, const toml::table& t, int index, double thr
                        const std::vector<FormulaSpec>& formulas) {
   const std::string path = "system[" + std::to_string(index) + "]";
   SystemSpec s;
-  const std::string kind = get_string(c, t, path, "kind", "");
+  const std::string kind = detail::string_key(c.file, t, path, "kind", "");
   if (kind == "atom") {
     s.geometry = Geometry::Radial;
-    check_keys(c, t, path, concat(kCommonKeys, kAtomKeys), kLineKeys,
+    check_keys(c, t, path, detail::concat(kCommonKeys, kAtomKeys), kLineKeys,
                "this key belongs to line systems (kind = \"line\"); this system has kind = \"atom\"");
   } else if (kind == "line") {
     s.geometry = Geometry::Line;
-    check_keys(c, t, path, concat(kCommonKeys, kLineKeys), kAtomKeys,
+    check_keys(c, t, path, detail::concat(kCommonKeys, kLineKeys), kAtomKeys,
                "this key belongs to atoms (kind = \"atom\"); this system has kind = \"line\"");
   } else {
     // Misspelt keys first: a misspelt "kind" would otherwise be reported as missing.
-    check_keys(c, t, path, concat(concat(kCommonKeys, kAtomKeys), kLineKeys));
+    check_keys(c, t, path, detail::concat(detail::concat(kCommonKeys, kAtomKeys), kLineKeys));
     const std::string near = kind.empty() ? std::string() : nearest_word(kind, {"atom", "line"});
     throw InputError(loc_in(c, t, path, "kind"),
                      (kind.empty() ? std::string("missing kind") : "unknown kind '" + kind + "'") +
                          (near.empty() ? "" : "; did you mean '" + near + "'?") +
                          ": use kind = \"atom\" (spherical atom or ion) or kind = \"line\" (1D model system)");
   }
-  s.name = get_string(c, t, path, "name", "system" + std::to_string(index + 1));
+  s.name = detail::string_key(c.file, t, path, "name", "system" + std::to_string(index + 1));
   check_name(c, t, path, s.name);
   s.charge = get_number(c, t, path, "charge", 0.0);
-  const std::string spin = get_string(c, t, path, "spin", "unpolarized");
+  const std::string spin = detail::string_key(c.file, t, path, "spin", "unpolarized");
   if (spin == "polarized")
     s.spin_polarized = true;
   else if (spin != "unpolarized")
@@ -677,7 +645,7 @@ std::vector<FormulaSpec> read_formulas(const Ctx& c, const toml::table& root) {
     f.expression = en->as_string()->get();
     f.where = loc(c, *en, path + ".expression");
     f.where.column = 0;  // the message gives the column inside the expression
-    const std::string per = get_string(c, *t, path, "per", "particle");
+    const std::string per = detail::string_key(c.file, *t, path, "per", "particle");
     if (per == "volume")
       f.per_volume = true;
     else if (per != "particle")
@@ -686,11 +654,9 @@ std::vector<FormulaSpec> read_formulas(const Ctx& c, const toml::table& root) {
       const toml::table* pt = pn->as_table();
       if (!pt) throw InputError(loc(c, *pn, path + ".parameters"), "expected { name = value, ... }");
       for (const auto& [pk, pv] : *pt) {
-        auto val = pv.value<double>();
-        if (!val || !std::isfinite(*val))
-          throw InputError(loc(c, pv, path + ".parameters." + std::string(pk.str())), "expected a finite number");
+        const double val = detail::finite_number(c.file, pv, path + ".parameters." + std::string(pk.str()));
         f.parameter_names.emplace_back(pk.str());
-        f.parameter_values.push_back(*val);
+        f.parameter_values.push_back(val);
       }
     }
     compile_formula(f);  // syntax errors now, with line and column
@@ -735,15 +701,7 @@ SolveInput parse_table(const toml::table& root, const Ctx& c, const std::vector<
 
 SolveInput parse_with(const std::string& text, const std::string& name) {
   Ctx c{name, fs::path(name).parent_path()};
-  toml::table root;
-  try {
-    root = toml::parse(text, std::string{name});
-  } catch (const toml::parse_error& e) {
-    const auto& s = e.source();
-    throw InputError(SourceLocation{name, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), ""},
-                     "TOML syntax error: " + std::string(e.description()));
-  }
-  return parse_table(root, c);
+  return parse_table(detail::parse_toml(text, name), c);
 }
 
 }  // namespace
@@ -755,18 +713,10 @@ SolveInput parse_solve_root(const toml::table& root, const std::string& file, co
   Ctx c{file, fs::path(file).parent_path()};
   return parse_table(root, c, extra_keys);
 }
-SourceLocation location(const std::string& file, const toml::node& node, const std::string& key) {
-  const auto& s = node.source();
-  return SourceLocation{file, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), key};
-}
 }  // namespace detail
 
 SolveInput read_solve_input(const std::string& path) {
-  std::ifstream f(path, std::ios::binary);
-  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open input file");
-  std::stringstream ss;
-  ss << f.rdbuf();
-  return parse_with(ss.str(), path);
+  return parse_with(detail::read_text_file(path, "cannot open input file"), path);
 }
 
 }  // namespace stillpoint

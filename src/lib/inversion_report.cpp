@@ -4,7 +4,6 @@
 #include <cmath>
 #include <cstdio>
 #include <filesystem>
-#include <fstream>
 #include <nlohmann/json.hpp>
 #include <sstream>
 
@@ -32,24 +31,22 @@ std::string choice(const std::string& file, const toml::table& t, const std::str
                    const std::vector<std::string>& allowed) {
   const toml::node* n = t.get(key);
   if (!n) return def;
-  auto v = n->value<std::string>();
-  if (!v) bad(file, *n, key, "expected a string");
-  if (std::find(allowed.begin(), allowed.end(), *v) == allowed.end()) {
+  const std::string v = detail::string_key(file, t, "invert", key, def);
+  if (std::find(allowed.begin(), allowed.end(), v) == allowed.end()) {
     std::string list;
     for (std::size_t i = 0; i < allowed.size(); ++i) list += (i ? ", " : "") + ("\"" + allowed[i] + "\"");
-    const std::string near = nearest_word(*v, allowed);
-    bad(file, *n, key, "unknown value '" + *v + "'" + (near.empty() ? "" : " (did you mean '" + near + "'?)") + "; use " + list);
+    const std::string near = nearest_word(v, allowed);
+    bad(file, *n, key, "unknown value '" + v + "'" + (near.empty() ? "" : " (did you mean '" + near + "'?)") + "; use " + list);
   }
-  return *v;
+  return v;
 }
 
 double positive(const std::string& file, const toml::table& t, const std::string& key, double def, bool allow_zero = false) {
   const toml::node* n = t.get(key);
   if (!n) return def;
-  auto v = n->value<double>();
-  if (!v || !std::isfinite(*v)) bad(file, *n, key, "expected a finite number");
-  if (allow_zero ? *v < 0 : *v <= 0) bad(file, *n, key, allow_zero ? "must not be negative" : "must be positive");
-  return *v;
+  const double v = detail::finite_number(file, *n, "invert." + key);
+  if (allow_zero ? v < 0 : v <= 0) bad(file, *n, key, allow_zero ? "must not be negative" : "must be positive");
+  return v;
 }
 
 InvertInput parse_root(const toml::table& root, const std::string& file) {
@@ -68,13 +65,7 @@ InvertInput parse_root(const toml::table& root, const std::string& file) {
   if (!node) throw InputError(SourceLocation{file, 0, 0, "invert"}, "no [invert] table given: nothing to invert");
   const toml::table* t = node->as_table();
   if (!t) throw InputError(location(file, *node, "invert"), "expected an [invert] table");
-  for (const auto& [k, v] : *t) {
-    const std::string key(k.str());
-    if (std::find(kInvertKeys.begin(), kInvertKeys.end(), key) != kInvertKeys.end()) continue;
-    const std::string near = nearest_word(key, kInvertKeys);
-    throw InputError(location(file, v, "invert." + key),
-                     "unknown key" + (near.empty() ? std::string() : "; did you mean '" + near + "'?"));
-  }
+  detail::check_keys(file, *t, "invert", kInvertKeys, /*list_valid=*/false);
   const toml::node* tn = t->get("target");
   if (!tn) throw InputError(location(file, *t, "invert.target"), "missing target = \"FILE.csv\" (the density to invert)");
   auto target = tn->value<std::string>();
@@ -228,23 +219,11 @@ void require_finite(double v, const char* what) {
 }  // namespace
 
 InvertInput parse_invert_input(const std::string& text, const std::string& name) {
-  toml::table root;
-  try {
-    root = toml::parse(text, std::string{name});
-  } catch (const toml::parse_error& e) {
-    const auto& s = e.source();
-    throw InputError(SourceLocation{name, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), ""},
-                     "TOML syntax error: " + std::string(e.description()));
-  }
-  return parse_root(root, name);
+  return parse_root(detail::parse_toml(text, name), name);
 }
 
 InvertInput read_invert_input(const std::string& path) {
-  std::ifstream f(path, std::ios::binary);
-  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open input file");
-  std::stringstream ss;
-  ss << f.rdbuf();
-  return parse_invert_input(ss.str(), path);
+  return parse_invert_input(detail::read_text_file(path, "cannot open input file"), path);
 }
 
 std::string format_inversion(const InvertInput& in, const TargetDensity& t, const InversionResult& r) {

@@ -1,0 +1,110 @@
+#include "input_detail.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <cstdio>
+#include <fstream>
+#include <sstream>
+
+#include "stillpoint/errors.hpp"
+
+namespace stillpoint::detail {
+
+namespace {
+
+std::string join(const std::string& path, const std::string& key) { return path.empty() ? key : path + "." + key; }
+
+}  // namespace
+
+SourceLocation location(const std::string& file, const toml::node& node, const std::string& key) {
+  const auto& s = node.source();
+  return SourceLocation{file, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), key};
+}
+
+SourceLocation key_location(const std::string& file, const toml::table& t, const std::string& path, const std::string& key) {
+  if (const toml::node* n = t.get(key)) return location(file, *n, join(path, key));
+  return location(file, t, join(path, key));
+}
+
+std::string read_text_file(const std::string& path, const std::string& cannot_open) {
+  std::ifstream f(path, std::ios::binary);
+  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, cannot_open);
+  std::stringstream ss;
+  ss << f.rdbuf();
+  return ss.str();
+}
+
+toml::table parse_toml(const std::string& text, const std::string& name, const std::string& prefix) {
+  try {
+    return toml::parse(text, std::string{name});
+  } catch (const toml::parse_error& e) {
+    const auto& s = e.source();
+    throw InputError(SourceLocation{name, static_cast<int>(s.begin.line), static_cast<int>(s.begin.column), ""},
+                     prefix + std::string(e.description()));
+  }
+}
+
+std::vector<std::string> concat(std::vector<std::string> a, const std::vector<std::string>& b) {
+  a.insert(a.end(), b.begin(), b.end());
+  return a;
+}
+
+void check_keys(const std::string& file, const toml::table& t, const std::string& path, const std::vector<std::string>& allowed,
+                bool list_valid) {
+  for (const auto& [k, v] : t) {
+    const std::string key(k.str());
+    if (std::find(allowed.begin(), allowed.end(), key) != allowed.end()) continue;
+    const std::string near = nearest_word(key, allowed);
+    std::string message = "unknown key" + (near.empty() ? std::string() : "; did you mean '" + near + "'?");
+    if (list_valid) {
+      std::string valid;
+      for (const auto& a : allowed) valid += (valid.empty() ? "" : ", ") + a;
+      message += " (valid here: " + valid + ")";
+    }
+    throw InputError(location(file, v, join(path, key)), message);
+  }
+}
+
+double finite_number(const std::string& file, const toml::node& n, const std::string& key) {
+  // value<double>() is also empty for integers beyond 2^53, which a double cannot hold exactly.
+  const auto v = n.value<double>();
+  if (!n.is_number() || !v || !std::isfinite(*v)) throw InputError(location(file, n, key), "expected a finite number");
+  return *v;
+}
+
+double number_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, double def) {
+  const toml::node* n = t.get(key);
+  return n ? finite_number(file, *n, join(path, key)) : def;
+}
+
+int int_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, int def, int lo,
+            int hi, const std::string& message) {
+  const toml::node* n = t.get(key);
+  if (!n) return def;
+  const auto* i = n->as_integer();
+  if (!i || i->get() < lo || i->get() > hi) throw InputError(location(file, *n, join(path, key)), message);
+  return static_cast<int>(i->get());
+}
+
+bool bool_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key, bool def) {
+  const toml::node* n = t.get(key);
+  if (!n) return def;
+  if (const auto* b = n->as_boolean()) return b->get();
+  throw InputError(location(file, *n, join(path, key)), "expected true or false");
+}
+
+std::string string_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key,
+                       const std::string& def) {
+  const toml::node* n = t.get(key);
+  if (!n) return def;
+  if (const auto* s = n->as_string()) return s->get();
+  throw InputError(location(file, *n, join(path, key)), "expected a string");
+}
+
+std::string format_number(double v, int digits) {
+  char buf[40];
+  std::snprintf(buf, sizeof buf, "%.*g", digits, v);
+  return buf;
+}
+
+}  // namespace stillpoint::detail
