@@ -6,6 +6,7 @@
 #include <chrono>
 #include <cmath>
 #include <cstdio>
+#include <string>
 #include <vector>
 
 #include "stillpoint/eigensolver.hpp"
@@ -264,17 +265,39 @@ void gradient_report(int nodes) {
 
 }  // namespace
 
+// --reports=LIST (comma-separated: scaling, eigensolver, gradient, exact, invert, fit; default
+// all) picks the ratio reports; Google Benchmark's own flags pick its cases
+// (--benchmark_filter=NONE skips them), so one report can be re-measured in seconds.
 int main(int argc, char** argv) {
   openblas_set_num_threads(1);
-  benchmark::Initialize(&argc, argv);
+  std::string reports = "scaling,eigensolver,gradient,exact,invert,fit";
+  std::vector<char*> rest;
+  for (int i = 0; i < argc; ++i) {
+    const std::string a = argv[i];
+    if (a.rfind("--reports=", 0) == 0)
+      reports = a.substr(10);
+    else
+      rest.push_back(argv[i]);
+  }
+  reports.insert(0, 1, ',');
+  reports.push_back(',');
+  int n = static_cast<int>(rest.size());
+  benchmark::Initialize(&n, rest.data());
   benchmark::RunSpecifiedBenchmarks();
   benchmark::Shutdown();
-  scaling_report();
-  eigensolver_report();
-  gradient_report(481);
-  gradient_report(2401);
-  exact_report();
-  invert_report();
-  fit_report();
+  auto wanted = [&](const char* name) {
+    std::string key(1, ',');  // built by appending: GCC 12 warns falsely on operator+ chains
+    key.append(name).push_back(',');
+    return reports.find(key) != std::string::npos;
+  };
+  if (wanted("scaling")) scaling_report();
+  if (wanted("eigensolver")) eigensolver_report();
+  if (wanted("gradient")) {
+    gradient_report(481);
+    gradient_report(2401);
+  }
+  if (wanted("exact")) exact_report();
+  if (wanted("invert")) invert_report();
+  if (wanted("fit")) fit_report();
   return 0;
 }
