@@ -88,19 +88,20 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     Eigen::VectorXd n_tot = m.density[0];
     for (int s = 1; s < ns; ++s) n_tot += m.density[s];
     const double N = W.dot(n_tot);
-    // Density-weighted metric: what the electrons feel. The floor keeps the far tail, where
-    // only unoccupied states live, from being ignored by the extrapolation.
-    const Eigen::VectorXd dens_metric = W.cwiseProduct(n_tot) / N;
-    const Eigen::VectorXd metric_one = dens_metric.array() + 1e-8 * W.array() / W.sum();
-    Eigen::VectorXd metric(metric_one.size() * ns);
-    for (int s = 0; s < ns; ++s) metric.segment(s * metric_one.size(), metric_one.size()) = metric_one;
+    // Density-weighted metric: what the electrons feel, each spin's potential weighted by that
+    // spin's density. (Weighting the minority potential by the total density made the SCF stall
+    // for spin-polarized GGA atoms: where the minority density vanishes but the majority one
+    // does not, PBE-type correlation potentials of the empty spin grow like (1 − ζ)^(−1/3) and
+    // are numerical noise, felt by no electron.) The floor keeps the far tail, where only
+    // unoccupied states live, from being ignored by the extrapolation.
+    const int nn = static_cast<int>(n_tot.size());
+    Eigen::VectorXd dens_metric(nn * ns);
+    for (int s = 0; s < ns; ++s) dens_metric.segment(s * nn, nn) = W.cwiseProduct(m.density[s]) / N;
+    Eigen::VectorXd metric = dens_metric;
+    for (int s = 0; s < ns; ++s) metric.segment(s * nn, nn).array() += 1e-8 * W.array() / W.sum();
     const Eigen::VectorXd vin = stack(v_in);
     const Eigen::VectorXd res = stack(m.v_out) - vin;
-    double r2 = 0.0;
-    for (int s = 0; s < ns; ++s) {
-      const auto seg = res.segment(s * n_tot.size(), n_tot.size());
-      r2 += dens_metric.dot(seg.cwiseProduct(seg));
-    }
+    const double r2 = dens_metric.dot(res.cwiseProduct(res));
     ScfStep step;
     step.iteration = it;
     step.energy = m.energy.total;
