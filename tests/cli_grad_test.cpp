@@ -59,6 +59,11 @@ kind = "energy"
   ASSERT_EQ(t.rc, 0) << t.err;
   const auto ja = nlohmann::json::parse(s.read("outa/grad.json")), jt = nlohmann::json::parse(s.read("outt/grad.json"));
   EXPECT_EQ(ja["units"]["energy"], "hartree");
+  // Every linear solve met the Krylov tolerance (the floor was not needed here).
+  for (const auto* j : {&ja, &jt}) {
+    EXPECT_GT((*j)["linear_solves"].get<int>(), 0);
+    EXPECT_LE((*j)["max_linear_residual"].get<double>(), (*j)["krylov_tolerance"].get<double>());
+  }
   ASSERT_EQ(ja["parameters"].size(), 5u);  // weight, a1, b2, omega, center
   for (std::size_t i = 0; i < ja["parameters"].size(); ++i) {
     const double ga = ja["parameters"][i]["gradient"], gt = jt["parameters"][i]["gradient"];

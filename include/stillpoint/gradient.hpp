@@ -86,6 +86,10 @@ struct GradientResult {
   std::vector<double> term_quantities;
   int linear_solves = 0;
   int krylov_iterations = 0;
+  /// Largest relative residual of any linear solve. Normally below the Krylov tolerance; a
+  /// solve whose restarts stopped improving is accepted up to ResponseOptions::krylov_floor,
+  /// and then this says how far the derivative is from exact.
+  double max_linear_residual = 0.0;
   double scf_seconds = 0.0;
   double gradient_seconds = 0.0;
 };
@@ -102,6 +106,10 @@ struct ResidualResult {
   std::vector<double> term_values, term_quantities;
   int linear_solves = 0;
   int krylov_iterations = 0;
+  /// Largest relative residual of any linear solve. Normally below the Krylov tolerance; a
+  /// solve whose restarts stopped improving is accepted up to ResponseOptions::krylov_floor,
+  /// and then this says how far the derivative is from exact.
+  double max_linear_residual = 0.0;
   double scf_seconds = 0.0;
   double gradient_seconds = 0.0;
 };

@@ -74,6 +74,14 @@ int run_grad(const GradCommandOptions& o) {
   std::snprintf(buf, sizeof buf, "%s mode: %d linear solve(s), %d GMRES iterations; SCF %.3f s, gradient %.3f s\n", mode,
                 r.linear_solves, r.krylov_iterations, r.scf_seconds, r.gradient_seconds);
   out << buf;
+  const double krylov_tol = in.options.response.krylov_tolerance;
+  if (r.linear_solves > 0 && r.max_linear_residual > krylov_tol) {
+    std::snprintf(buf, sizeof buf,
+                  "note: a linear solve stopped improving at relative residual %.1e (tolerance %.1e, accepted up to "
+                  "%.1e): the gradient carries an error of about that relative size\n",
+                  r.max_linear_residual, krylov_tol, in.options.response.krylov_floor);
+    out << buf;
+  }
   if (in.verify) {
     std::snprintf(buf, sizeof buf, "verify: %s (tolerance %.1e relative, floor %.1e)\n",
                   verified ? "PASS, every component agrees with central differences" : "FAIL", in.verify_tolerance,
@@ -98,6 +106,8 @@ int run_grad(const GradCommandOptions& o) {
     j["parameters"] = params;
     j["linear_solves"] = r.linear_solves;
     j["krylov_iterations"] = r.krylov_iterations;
+    j["max_linear_residual"] = r.max_linear_residual;
+    j["krylov_tolerance"] = krylov_tol;
     j["seconds"] = {{"scf", r.scf_seconds}, {"gradient", r.gradient_seconds}};
     if (in.verify) j["verify"] = {{"passed", verified}, {"tolerance", in.verify_tolerance}, {"floor", in.verify_floor}};
     // Grid-valued parameters: the gradient field per system as CSV.

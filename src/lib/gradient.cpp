@@ -448,6 +448,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
   const int na = static_cast<int>(active_.size());
   std::vector<Eigen::VectorXd> g(na, Eigen::VectorXd::Zero(np));
   std::vector<int> solves(na, 0), iters(na, 0);
+  std::vector<double> worst(na, 0.0);  // largest relative residual of the linear solves, per system
   const auto errors = detail::parallel_for(na, options_.threads, [&](int i) {
     const int s = active_[i];
     const KsProblem& P = *c->problems[s];
@@ -468,6 +469,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
       const Eigen::VectorXd zeta = R.solve_adjoint(gv);
       solves[i]++;
       iters[i] += R.last_iterations();
+      worst[i] = std::max(worst[i], R.last_residual());
       const auto zs = R.unpack(zeta);
       const Eigen::VectorXd& W = P.mesh().density_weight();
       for (int p = 0; p < np; ++p) {
@@ -485,6 +487,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
         const Eigen::VectorXd vdot = R.solve_tangent(R.pack(parameter_potential(P, S, params_[p])));
         solves[i]++;
         iters[i] += R.last_iterations();
+        worst[i] = std::max(worst[i], R.last_residual());
         g[i](p) += R.dot(gn, R.chi0(vdot)) + R.dot(geps, vdot);
       }
     }
@@ -497,6 +500,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
     res.gradient += g[i];
     res.linear_solves += solves[i];
     res.krylov_iterations += iters[i];
+    res.max_linear_residual = std::max(res.max_linear_residual, worst[i]);
   }
   res.scf_seconds = c->scf_seconds;
   res.gradient_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t1).count();
@@ -564,6 +568,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
   std::vector<Eigen::MatrixXd> dn(systems_.size());          // nodes x params
   std::vector<Eigen::VectorXd> deps(loss_.size());           // per eigenvalue term
   std::vector<int> solves(na, 0), iters(na, 0);
+  std::vector<double> worst(na, 0.0);  // largest relative residual of the linear solves, per system
   const auto errors = detail::parallel_for(na, options_.threads, [&](int i) {
     const int s = active_[i];
     const KsProblem& P = *c->problems[s];
@@ -589,6 +594,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
       const Eigen::VectorXd vdot = R.solve_tangent(R.pack(parameter_potential(P, S, params_[p])));
       solves[i]++;
       iters[i] += R.last_iterations();
+      worst[i] = std::max(worst[i], R.last_residual());
       const auto nd = R.unpack(R.chi0(vdot));
       Eigen::VectorXd tot = nd[0];
       for (std::size_t sp = 1; sp < nd.size(); ++sp) tot += nd[sp];
@@ -622,6 +628,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
   for (int i = 0; i < na; ++i) {
     res.linear_solves += solves[i];
     res.krylov_iterations += iters[i];
+    res.max_linear_residual = std::max(res.max_linear_residual, worst[i]);
   }
   res.scf_seconds = c->scf_seconds;
   res.gradient_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t1).count();

@@ -263,6 +263,7 @@ Eigen::VectorXd Response::Impl::gmres(const Eigen::VectorXd& b, bool adjoint, co
   Eigen::VectorXd x = Eigen::VectorXd::Zero(n);
   const double bnorm = std::sqrt(R.dot(b, b));
   last_iterations = 0;
+  last_residual = 0.0;
   if (bnorm == 0.0) return x;
   std::vector<std::string> history{"GMRES residual history:"};
   int total = 0;
