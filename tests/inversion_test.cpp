@@ -12,6 +12,8 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <sstream>
+#include <algorithm>
 #include <fstream>
 #include <nlohmann/json.hpp>
 #include <numbers>
@@ -235,6 +237,44 @@ TEST(InvertTwoElectron, ExactHeliumDensityGivesTheExactKsPotential) {
   const Dev db = deviation(m, b.v_s[0], ex.ks.v_s, ex.density, 1e-6, false);
   EXPECT_LT(db.max, 1e-6) << "at x = " << db.at;
   EXPECT_LT(deviation(m, b.v_xc[0], ex.v_xc, ex.density, 1e-6, false).max, 1e-6);
+}
+
+TEST(InvertTwoElectron, ShippedExactHeliumWorkflowGivesTheExactVxc) {
+  // workflows/invert-1d-helium-exact.toml inverts the exact density that `exact` wrote into
+  // workflows/data/fit-1d-exact/helium; the same file holds the exact v_xc (two-electron
+  // formula, [4e]) in its v_xc_hartree column and the nodes it trusts. check-values §2
+  // [computed]: HOMO = −I = −0.75482185.
+  const sp::InvertInput in = sp::read_invert_input(std::string(STILLPOINT_SOURCE_DIR) + "/workflows/invert-1d-helium-exact.toml");
+  const sp::Mesh m = sp::Mesh::line(in.system.grid);
+  const sp::TargetDensity t =
+      sp::read_target_density(in.target_file, m, sp::electrons_per_spin(in.system), in.target_location, in.target_column);
+  EXPECT_TRUE(t.exact_nodes);
+  const sp::InversionResult r = sp::invert_density(in.system, t.density, in.options, t.covered);
+  EXPECT_NEAR(r.homo, -0.75482185, 1e-8);
+  std::ifstream f(in.target_file);
+  std::string line;
+  std::vector<std::string> header;
+  int k = 0, checked = 0;
+  double worst = 0.0;
+  while (std::getline(f, line)) {
+    if (line.empty() || line[0] == '#') continue;
+    std::vector<std::string> cells;
+    std::stringstream ss(line);
+    for (std::string c; std::getline(ss, c, ',');) cells.push_back(c);
+    if (header.empty()) {
+      header = cells;
+      continue;
+    }
+    auto col = [&](const char* name) { return std::stod(cells[std::find(header.begin(), header.end(), name) - header.begin()]); };
+    if (col("trusted") > 0.5) {
+      worst = std::max(worst, std::abs(r.v_xc[0](k) - col("v_xc_hartree")));
+      ++checked;
+    }
+    ++k;
+  }
+  ASSERT_EQ(k, m.num_nodes());
+  EXPECT_GT(checked, 100);
+  EXPECT_LT(worst, 1e-6);
 }
 
 // ---------------------------------------------------------------------------------------------
