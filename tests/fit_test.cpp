@@ -530,6 +530,8 @@ TEST(FitCli, OutputsAndFittedModelRoundTrip) {
   EXPECT_EQ(j["parameters"][0]["published"].get<double>(), 0.045);
   EXPECT_TRUE(j["loss"]["validation"]["fitted"].is_number());
   EXPECT_EQ(j["terms"][1]["set"], "validation");
+  // The linear solves met the default Krylov tolerance (1e-12, docs/grad.md).
+  EXPECT_LE(j["max_linear_residual"].get<double>(), 1e-12);
   EXPECT_EQ(s.read("out/fit.json").find("NaN"), std::string::npos);
   // solve reproduces the fitted energies from the fitted-model file alone.
   const auto sv = s.cli("solve out/fitted-model.toml --output solved");

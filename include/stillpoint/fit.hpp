@@ -141,6 +141,9 @@ struct FitResult {
   std::vector<FitIteration> history;
   std::vector<std::string> rejected;  ///< one line per rejected trial point, with the reason
   int evaluations = 0, replayed_evaluations = 0;
+  /// Largest relative residual of the linear (tangent or adjoint) solves of the evaluations
+  /// made by this run: normally below the Krylov tolerance (GradientResult::max_linear_residual).
+  double max_linear_residual = 0.0;
   FitSnapshot before, after;
   FitUncertainty uncertainty;
   std::vector<std::string> warnings;

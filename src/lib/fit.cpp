@@ -7,6 +7,7 @@
 
 #include <algorithm>
 #include <chrono>
+#include <cstdio>
 #include <cmath>
 #include <cstdint>
 #include <cstring>
@@ -252,6 +253,7 @@ class Engine {
   mutable bool restored_ = true;
   mutable bool interrupted_ = false;
   mutable int evaluations_ = 0, replayed_ = 0;
+  mutable double max_linear_residual_ = 0.0;  // over the evaluations of this run (not replayed ones)
   mutable std::vector<FitIteration> history_;
   int iteration_offset_ = 0, restarts_ = 0;  // L-BFGS restarts continue the iteration count
 };
@@ -300,6 +302,7 @@ bool Engine::lbfgs(const double* u, double* cost, double* grad) const {
     try {
       if (run_.inject_failure && run_.inject_failure(theta)) throw NumericalError("SCF failure injected by a test hook");
       const GradientResult r = train_->evaluate(theta);
+      max_linear_residual_ = std::max(max_linear_residual_, r.max_linear_residual);
       fresh.loss = r.loss + reg_.value(theta);
       fresh.gradient = r.gradient + reg_.gradient(theta);
       if (!std::isfinite(fresh.loss) || !fresh.gradient.allFinite())
@@ -339,6 +342,7 @@ bool Engine::lm(const double* x, double* residuals, double* jacobian) const {
       if (!solved_here && run_.inject_failure && run_.inject_failure(theta))
         throw NumericalError("SCF failure injected by a test hook");
       const ResidualResult r = train_->residuals(theta, jacobian != nullptr);
+      max_linear_residual_ = std::max(max_linear_residual_, r.max_linear_residual);
       fresh.residuals.resize(num_residuals());
       fresh.residuals << r.residuals, reg_.residuals(theta);
       fresh.loss = fresh.residuals.squaredNorm();
@@ -473,6 +477,7 @@ FitSnapshot Engine::snapshot(const Eigen::VectorXd& theta, bool with_jacobian, E
   s.theta = theta;
   if (train_->residual_form()) {
     const ResidualResult r = train_->residuals(theta, with_jacobian);
+    max_linear_residual_ = std::max(max_linear_residual_, r.max_linear_residual);
     s.training_values = r.term_values;
     s.training_quantities = r.term_quantities;
     s.training_loss = r.loss;
@@ -667,6 +672,7 @@ FitResult Engine::run() {
   res.history = history_;
   res.rejected = state_.rejected;
   res.evaluations = evaluations_;
+  res.max_linear_residual = max_linear_residual_;
   res.replayed_evaluations = replayed_;
   res.message = ceres_message;
   res.fitted = final_theta;
@@ -695,6 +701,16 @@ FitResult Engine::run() {
     res.after = snapshot(final_theta, want_errors, &J, &r);
   } catch (const NumericalError& e) {
     throw NumericalError(std::string("the fitted point could not be evaluated again: ") + e.what(), e.details());
+  }
+  res.max_linear_residual = max_linear_residual_;  // now including the Jacobian at the optimum
+  const double krylov_tol = spec_.gradient.response.krylov_tolerance;
+  if (res.max_linear_residual > krylov_tol) {
+    char buf[240];
+    std::snprintf(buf, sizeof buf,
+                  "a linear solve stopped improving at relative residual %.1e (tolerance %.1e): derivatives carry an "
+                  "error of about that relative size",
+                  res.max_linear_residual, krylov_tol);
+    res.warnings.push_back(buf);
   }
   if (want_errors)
     uncertainty(res, J, r);

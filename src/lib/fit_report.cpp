@@ -587,6 +587,7 @@ OutputFiles fit_output_files(const FitWorkflow& wf, const FitResult& r) {
   for (const auto& h : r.history) its = std::max(its, h.iteration);
   j["iterations"] = its;
   j["evaluations"] = r.evaluations + r.replayed_evaluations;
+  j["max_linear_residual"] = r.max_linear_residual;
   j["replayed_evaluations"] = r.replayed_evaluations;
   j["threads"] = s.options.threads;
   j["seconds"] = jnum(r.seconds);
