@@ -5,27 +5,10 @@
 #include <fstream>
 #include <sstream>
 
+#include "interpolation.hpp"
 #include "stillpoint/errors.hpp"
 
 namespace stillpoint {
-
-namespace {
-// Natural cubic spline second derivatives, computed on demand: tables are small.
-std::vector<double> spline_second(const std::vector<double>& x, const std::vector<double>& y) {
-  const std::size_t n = x.size();
-  std::vector<double> m(n, 0.0), u(n, 0.0);
-  for (std::size_t i = 1; i + 1 < n; ++i) {
-    const double sig = (x[i] - x[i - 1]) / (x[i + 1] - x[i - 1]);
-    const double p = sig * m[i - 1] + 2.0;
-    m[i] = (sig - 1.0) / p;
-    const double d = (y[i + 1] - y[i]) / (x[i + 1] - x[i]) - (y[i] - y[i - 1]) / (x[i] - x[i - 1]);
-    u[i] = (6.0 * d / (x[i + 1] - x[i - 1]) - sig * u[i - 1]) / p;
-  }
-  for (std::size_t k = n - 1; k-- > 0;) m[k] = m[k] * m[k + 1] + u[k];
-  m[n - 1] = 0.0;
-  return m;
-}
-}  // namespace
 
 double ExternalTerm::value(double x) const {
   switch (kind) {
@@ -75,7 +58,7 @@ ExternalTerm read_potential_table(const std::string& path) {
     t.table_v.push_back(v);
   }
   if (t.table_x.size() < 2) throw InputError(SourceLocation{path, 0, 0, ""}, "a potential table needs at least two rows");
-  t.table_m = spline_second(t.table_x, t.table_v);
+  t.table_m = detail::NaturalSpline(t.table_x, t.table_v).second_derivatives();
   return t;
 }
 

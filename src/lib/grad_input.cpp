@@ -8,6 +8,7 @@
 
 #include "grad_input_detail.hpp"
 #include "input_detail.hpp"
+#include "interpolation.hpp"
 #include "stillpoint/errors.hpp"
 #include "stillpoint/external_potential.hpp"
 #include "stillpoint/formula.hpp"
@@ -198,22 +199,6 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
 
 Mesh mesh_of(const SystemSpec& s) { return s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z); }
 
-// Natural cubic spline through (x, y): second derivatives at the points.
-std::vector<double> natural_spline(const std::vector<double>& x, const std::vector<double>& y) {
-  const std::size_t n = x.size();
-  std::vector<double> m(n, 0.0), u(n, 0.0);
-  for (std::size_t i = 1; i + 1 < n; ++i) {
-    const double sig = (x[i] - x[i - 1]) / (x[i + 1] - x[i - 1]);
-    const double q = sig * m[i - 1] + 2.0;
-    m[i] = (sig - 1.0) / q;
-    const double d = (y[i + 1] - y[i]) / (x[i + 1] - x[i]) - (y[i] - y[i - 1]) / (x[i] - x[i - 1]);
-    u[i] = (6.0 * d / (x[i + 1] - x[i - 1]) - sig * u[i - 1]) / q;
-  }
-  for (std::size_t k = n - 1; k-- > 0;) m[k] = m[k] * m[k + 1] + u[k];
-  m[n - 1] = 0.0;
-  return m;
-}
-
 std::vector<std::string> split_fields(const std::string& line) {
   std::vector<std::string> out;
   std::string cur;
@@ -272,7 +257,7 @@ ExternalTerm read_table_columns(const std::string& path, const std::vector<std::
     t.table_v.push_back(v);
   }
   if (t.table_x.size() < 2) throw InputError(SourceLocation{path, 0, 0, ""}, std::string("a ") + what + " table needs at least two rows");
-  t.table_m = natural_spline(t.table_x, t.table_v);
+  t.table_m = detail::NaturalSpline(t.table_x, t.table_v).second_derivatives();
   return t;
 }
 
