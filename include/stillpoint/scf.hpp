@@ -68,6 +68,11 @@ struct KsSolution {
   Eigen::VectorXd total_density() const;
 };
 
+/// Every computed state of every channel, labelled, with its occupation; `spin_shift` (empty,
+/// or one constant per spin, hartree) is added to the energies of that spin.
+std::vector<Level> labelled_levels(const KsProblem& problem, const std::vector<ChannelStates>& states,
+                                   const std::vector<double>& spin_shift = {});
+
 /// Solves the SCF from `start` (a previous solution of the same problem, warm start) or from
 /// the problem's initial potential. Throws NumericalError (with the residual history as
 /// details) when it does not converge.

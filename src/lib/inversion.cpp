@@ -807,20 +807,7 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
     }
   }
   R.density = ev.density;
-  for (std::size_t ci = 0; ci < P.channels().size(); ++ci) {
-    const Channel& ch = P.channels()[ci];
-    for (int i = 0; i < ch.states; ++i) {
-      Level lv;
-      lv.label = ch.labels[i];
-      lv.channel = static_cast<int>(ci);
-      lv.index = i;
-      lv.spin = ch.spin;
-      lv.l = ch.l;
-      lv.energy = ev.states[ci].energies(i) + R.shift[ch.spin];
-      lv.occupation = i < static_cast<int>(ch.occupations.size()) ? ch.occupations[i] : 0.0;
-      R.levels.push_back(lv);
-    }
-  }
+  R.levels = labelled_levels(P, ev.states, R.shift);
   // The model functional on the target density, for comparison.
   if (!system.xc.empty() && opt.form == Form::Interacting) {
     XcSettings xs;

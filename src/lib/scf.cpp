@@ -73,6 +73,26 @@ std::string format_step(const ScfStep& s) {
 
 }  // namespace
 
+std::vector<Level> labelled_levels(const KsProblem& P, const std::vector<ChannelStates>& states,
+                                   const std::vector<double>& spin_shift) {
+  std::vector<Level> levels;
+  for (std::size_t c = 0; c < P.channels().size(); ++c) {
+    const Channel& ch = P.channels()[c];
+    for (int i = 0; i < ch.states; ++i) {
+      Level lv;
+      lv.label = ch.labels[i];
+      lv.channel = static_cast<int>(c);
+      lv.index = i;
+      lv.spin = ch.spin;
+      lv.l = ch.l;
+      lv.energy = states[c].energies(i) + (spin_shift.empty() ? 0.0 : spin_shift[ch.spin]);
+      lv.occupation = i < static_cast<int>(ch.occupations.size()) ? ch.occupations[i] : 0.0;
+      levels.push_back(lv);
+    }
+  }
+  return levels;
+}
+
 KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution* start) {
   const int ns = P.nspin();
   const Eigen::VectorXd& W = P.mesh().density_weight();
@@ -139,20 +159,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       sol.history = std::move(history);
       sol.warm = warm;
       sol.iterations = it;
-      for (std::size_t c = 0; c < P.channels().size(); ++c) {
-        const Channel& ch = P.channels()[c];
-        for (int i = 0; i < ch.states; ++i) {
-          Level lv;
-          lv.label = ch.labels[i];
-          lv.channel = static_cast<int>(c);
-          lv.index = i;
-          lv.spin = ch.spin;
-          lv.l = ch.l;
-          lv.energy = sol.states[c].energies(i);
-          lv.occupation = i < static_cast<int>(ch.occupations.size()) ? ch.occupations[i] : 0.0;
-          sol.levels.push_back(lv);
-        }
-      }
+      sol.levels = labelled_levels(P, sol.states);
       return sol;
     }
     // Pulay / DIIS extrapolation with a restart safeguard when the residual blows up.
