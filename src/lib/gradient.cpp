@@ -281,6 +281,24 @@ struct GradientProblem::Cache {
 
 namespace {
 
+// Linear-solve statistics of one system's derivative (kept per system so that parallel
+// systems never share a counter), summed into a result in system order.
+struct SolveStats {
+  int solves = 0, iterations = 0;
+  double worst_residual = 0.0;  // largest relative residual of the solves
+  void add(const Response& R) {
+    ++solves;
+    iterations += R.last_iterations();
+    worst_residual = std::max(worst_residual, R.last_residual());
+  }
+  template <class Result>
+  void add_to(Result& r) const {
+    r.linear_solves += solves;
+    r.krylov_iterations += iterations;
+    r.max_linear_residual = std::max(r.max_linear_residual, worst_residual);
+  }
+};
+
 struct Partials {
   double loss = 0.0;
   std::vector<double> term_values, term_quantities;
@@ -447,8 +465,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
   const int np = static_cast<int>(params_.size());
   const int na = static_cast<int>(active_.size());
   std::vector<Eigen::VectorXd> g(na, Eigen::VectorXd::Zero(np));
-  std::vector<int> solves(na, 0), iters(na, 0);
-  std::vector<double> worst(na, 0.0);  // largest relative residual of the linear solves, per system
+  std::vector<SolveStats> stats(na);
   const auto errors = detail::parallel_for(na, options_.threads, [&](int i) {
     const int s = active_[i];
     const KsProblem& P = *c->problems[s];
@@ -467,9 +484,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
     if (options_.mode == GradientOptions::Mode::Adjoint) {
       const Eigen::VectorXd gv = R.chi0(gn) + geps;
       const Eigen::VectorXd zeta = R.solve_adjoint(gv);
-      solves[i]++;
-      iters[i] += R.last_iterations();
-      worst[i] = std::max(worst[i], R.last_residual());
+      stats[i].add(R);
       const auto zs = R.unpack(zeta);
       const Eigen::VectorXd& W = P.mesh().density_weight();
       for (int p = 0; p < np; ++p) {
@@ -485,9 +500,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
       for (int p = 0; p < np; ++p) {
         if (!acts_on(params_[p], s)) continue;
         const Eigen::VectorXd vdot = R.solve_tangent(R.pack(parameter_potential(P, S, params_[p])));
-        solves[i]++;
-        iters[i] += R.last_iterations();
-        worst[i] = std::max(worst[i], R.last_residual());
+        stats[i].add(R);
         g[i](p) += R.dot(gn, R.chi0(vdot)) + R.dot(geps, vdot);
       }
     }
@@ -498,9 +511,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
   res.gradient = Eigen::VectorXd::Zero(np);
   for (int i = 0; i < na; ++i) {  // fixed order: identical sums for any thread count
     res.gradient += g[i];
-    res.linear_solves += solves[i];
-    res.krylov_iterations += iters[i];
-    res.max_linear_residual = std::max(res.max_linear_residual, worst[i]);
+    stats[i].add_to(res);
   }
   res.scf_seconds = c->scf_seconds;
   res.gradient_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t1).count();
@@ -567,8 +578,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
   std::vector<Eigen::VectorXd> dE(systems_.size());
   std::vector<Eigen::MatrixXd> dn(systems_.size());          // nodes x params
   std::vector<Eigen::VectorXd> deps(loss_.size());           // per eigenvalue term
-  std::vector<int> solves(na, 0), iters(na, 0);
-  std::vector<double> worst(na, 0.0);  // largest relative residual of the linear solves, per system
+  std::vector<SolveStats> stats(na);
   const auto errors = detail::parallel_for(na, options_.threads, [&](int i) {
     const int s = active_[i];
     const KsProblem& P = *c->problems[s];
@@ -592,9 +602,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
     for (int p = 0; p < np; ++p) {
       if (!acts_on(params_[p], s)) continue;
       const Eigen::VectorXd vdot = R.solve_tangent(R.pack(parameter_potential(P, S, params_[p])));
-      solves[i]++;
-      iters[i] += R.last_iterations();
-      worst[i] = std::max(worst[i], R.last_residual());
+      stats[i].add(R);
       const auto nd = R.unpack(R.chi0(vdot));
       Eigen::VectorXd tot = nd[0];
       for (std::size_t sp = 1; sp < nd.size(); ++sp) tot += nd[sp];
@@ -625,11 +633,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
         break;
     }
   }
-  for (int i = 0; i < na; ++i) {
-    res.linear_solves += solves[i];
-    res.krylov_iterations += iters[i];
-    res.max_linear_residual = std::max(res.max_linear_residual, worst[i]);
-  }
+  for (const SolveStats& st : stats) st.add_to(res);
   res.scf_seconds = c->scf_seconds;
   res.gradient_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t1).count();
   return res;
