@@ -57,6 +57,10 @@ class XcTerm {
   /// Adds weight * (e and its derivatives up to `order`) into `out`, which has been reset by the caller.
   virtual void accumulate(const XcPointData& in, double weight, int order, XcDerivatives& out) const = 0;
 
+  /// Total density (bohr^-3 or bohr^-1) below which the term is smoothly switched off because
+  /// its potential diverges in exponentially decaying tails; 0 when it is never switched off.
+  virtual double tail_cut() const { return 0.0; }
+
   // Trainable terms (model families, user formulas) expose their parameters; libxc terms have none.
   virtual std::vector<std::string> parameter_names() const { return {}; }
   virtual std::vector<double> parameters() const { return {}; }
@@ -91,9 +95,29 @@ class XcFunctional {
   std::vector<double> weights_;
 };
 
+/// One functional of the installed libxc, as libxc describes it.
+struct LibxcEntry {
+  int id = 0;
+  std::string name;         ///< libxc's short name, e.g. "gga_x_b88"
+  std::string description;  ///< libxc's long name, e.g. "Becke 88"
+  std::string family;       ///< "LDA", "GGA", "hybrid GGA", "meta-GGA", ...
+  std::string kind;         ///< "exchange", "correlation", "exchange-correlation", "kinetic"
+  int dimension = 3;        ///< 1, 2 or 3 (libxc's dimensionality flags)
+};
+
+/// Every functional of the installed libxc, by increasing number.
+std::vector<LibxcEntry> libxc_catalog();
+
+/// Why libxc functional `id` cannot be an exchange-correlation term of a system (empty when
+/// it can): not LDA/GGA (hybrids, meta-GGAs), kinetic-energy functionals, potential-only
+/// functionals without an energy, no second derivatives, nonlocal (VV10) parts, or a
+/// dimension other than the system's (1 on the line, 3 for atoms). The one rule that both
+/// the input readers and the functional survey apply.
+std::string libxc_refusal(int id, bool one_dimensional);
+
 /// A libxc functional by name ("lda_x", "XC_GGA_X_PBE", "gga_x_pbe") or number ("1").
-/// LDA and GGA only; throws InputError for unknown names (with the nearest valid one),
-/// hybrids, meta-GGAs, kinetic functionals, or a 1D functional outside the 1D geometry.
+/// Throws InputError for unknown names (with the nearest valid one) and for every
+/// functional libxc_refusal() refuses, with its reason.
 std::unique_ptr<XcTerm> make_libxc_term(const std::string& name, const XcSettings& settings);
 
 /// The functional named by a list such as {"lda_x", "lda_c_vwn"}; an empty list or {"none"}

@@ -35,3 +35,12 @@ struct FitCommandOptions {
   int threads = 0;  ///< 0: from the input file or hardware
 };
 int run_fit(const FitCommandOptions& options);
+
+struct FunctionalsCommandOptions {
+  std::string survey;  ///< empty: list the catalog; else a survey set (functional_survey.hpp)
+  std::vector<std::string> only;
+  std::string markdown;
+  int threads = 1;
+  bool quiet = false;
+};
+int run_functionals(const FunctionalsCommandOptions& options);

@@ -206,6 +206,16 @@ int main(int argc, char** argv) {
   fit->add_option("--threads", fopt.threads, "systems evaluated in parallel (default: from the workflow file)");
   fit->add_flag("--quiet,-q", fopt.quiet, "no progress lines");
 
+  FunctionalsCommandOptions xopt;
+  auto* functionals = app.add_subcommand(
+      "functionals", "List the libxc functionals and whether each can be used; --survey solves with each of them");
+  functionals->add_option("--survey", xopt.survey,
+                          "solve a set of systems with every usable LDA/GGA: ne, docs, quick, atoms, lines, all");
+  functionals->add_option("--only", xopt.only, "restrict to these libxc names or numbers");
+  functionals->add_option("--markdown", xopt.markdown, "write the survey as a Markdown table (docs/functionals.md)");
+  functionals->add_option("--threads", xopt.threads, "functionals surveyed in parallel")->check(CLI::Range(1, 256));
+  functionals->add_flag("--quiet,-q", xopt.quiet, "no progress lines");
+
   try {
     app.parse(argc, argv);
   } catch (const CLI::ParseError& e) {
@@ -227,6 +237,7 @@ int main(int argc, char** argv) {
       check_output_dir(iopt.output);
       return run_invert(iopt);
     }
+    if (*functionals) return run_functionals(xopt);
     if (*fit) {
       check_output_dir(fopt.output);
       return run_fit(fopt);

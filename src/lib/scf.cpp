@@ -103,8 +103,53 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
   std::vector<Eigen::VectorXd> prev_eps;
   double prev_energy = std::numeric_limits<double>::quiet_NaN();
   double best_residual = std::numeric_limits<double>::infinity();
+  // Divergence safeguard: the best iterate so far is kept; when the residual grows by
+  // kDivergence over it (or a potential is so wild that the eigensolver fails), the SCF goes
+  // back there with half the mixing and no Pulay history, at most kMaxRestarts times.
+  constexpr double kDivergence = 1e3;
+  constexpr int kMaxRestarts = 4;
+  std::vector<Eigen::VectorXd> best_v = v_in;
+  std::vector<EigenWarmStart> best_warm = warm;
+  int best_iteration = 0, restarts = 0;
+  double mixing = opt.mixing;
+  std::vector<std::string> restart_notes;
+  auto history_lines = [&]() {
+    std::vector<std::string> lines{"SCF residual history:"};
+    for (const auto& h : history) lines.push_back(format_step(h));
+    for (const auto& n : restart_notes) lines.push_back(n);
+    return lines;
+  };
+  auto restart = [&](int it, const std::string& what) {
+    std::ostringstream note;
+    note << "  iteration " << it << ": " << what << "; back to iteration " << best_iteration << " (residual "
+         << best_residual << " Ha) with mixing " << mixing * 0.5;
+    restart_notes.push_back(note.str());
+    if (opt.verbose) std::fprintf(stderr, "%s\n", note.str().c_str());
+    if (++restarts > kMaxRestarts || best_iteration == 0) {
+      std::ostringstream msg;
+      msg << "SCF diverged with functional " << P.xc().describe() << ": " << what << " at iteration " << it
+          << " (first after the best iterate, iteration " << best_iteration << ")";
+      if (restarts > 1) msg << ", and " << restarts - 1 << " damped restarts did not help";
+      msg << "; try a smaller mixing or another grid";
+      throw NumericalError(msg.str(), history_lines());
+    }
+    mixing *= 0.5;
+    v_in = best_v;
+    warm = best_warm;
+    hist_v.clear();
+    hist_r.clear();
+    prev_eps.clear();
+    prev_energy = std::numeric_limits<double>::quiet_NaN();
+  };
   for (int it = 1; it <= opt.max_iterations; ++it) {
-    MapEvaluation m = evaluate_ks_map(P, v_in, warm);
+    MapEvaluation m;
+    try {
+      m = evaluate_ks_map(P, v_in, warm);
+    } catch (const NumericalError& e) {
+      if (best_iteration == 0) throw;
+      restart(it, std::string("the Kohn-Sham map failed (") + e.what() + ")");
+      continue;
+    }
     Eigen::VectorXd n_tot = m.density[0];
     for (int s = 1; s < ns; ++s) n_tot += m.density[s];
     const double N = W.dot(n_tot);
@@ -135,12 +180,21 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       step.eigenvalue_change = std::numeric_limits<double>::infinity();
     }
     if (!std::isfinite(step.energy) || !std::isfinite(step.residual)) {
-      std::vector<std::string> lines{"SCF residual history:"};
-      for (const auto& h : history) lines.push_back(format_step(h));
-      throw NumericalError("SCF produced a non-finite energy or residual at iteration " + std::to_string(it), lines);
+      if (best_iteration == 0)
+        throw NumericalError("SCF produced a non-finite energy or residual at iteration " + std::to_string(it) +
+                                 " with functional " + P.xc().describe(),
+                             history_lines());
+      restart(it, "non-finite energy or residual");
+      continue;
     }
     history.push_back(step);
     if (opt.verbose) std::fprintf(stderr, "%s\n", format_step(step).c_str());
+    if (best_iteration > 0 && step.residual > kDivergence * best_residual) {
+      std::ostringstream what;
+      what << "residual " << step.residual << " Ha grew by more than " << kDivergence << " over the best";
+      restart(it, what.str());
+      continue;
+    }
     const bool converged = step.residual < opt.potential_tolerance &&
                            std::abs(step.energy - prev_energy) < opt.energy_tolerance &&
                            step.eigenvalue_change < opt.eigenvalue_tolerance;
@@ -167,7 +221,12 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       hist_v.clear();
       hist_r.clear();
     }
-    best_residual = std::min(best_residual, step.residual);
+    if (step.residual < best_residual) {
+      best_residual = step.residual;
+      best_iteration = it;
+      best_v = v_in;
+      best_warm = warm;
+    }
     hist_v.push_back(vin);
     hist_r.push_back(res);
     if (static_cast<int>(hist_v.size()) > std::max(1, opt.history)) {
@@ -177,7 +236,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     const int k = static_cast<int>(hist_v.size());
     Eigen::VectorXd next;
     if (k == 1) {
-      next = vin + opt.mixing * res;
+      next = vin + mixing * res;
     } else {
       Eigen::MatrixXd A = Eigen::MatrixXd::Zero(k + 1, k + 1);
       Eigen::VectorXd rhs = Eigen::VectorXd::Zero(k + 1);
@@ -191,14 +250,14 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       rhs(k) = 1.0;
       const Eigen::VectorXd c = A.colPivHouseholderQr().solve(rhs);
       next = Eigen::VectorXd::Zero(vin.size());
-      for (int i = 0; i < k; ++i) next += c(i) * (hist_v[i] + opt.mixing * hist_r[i]);
-      if (!next.allFinite()) next = vin + opt.mixing * res;
+      for (int i = 0; i < k; ++i) next += c(i) * (hist_v[i] + mixing * hist_r[i]);
+      if (!next.allFinite()) next = vin + mixing * res;
     }
     v_in = unstack(next, ns);
   }
-  std::vector<std::string> lines{"SCF residual history:"};
-  for (const auto& h : history) lines.push_back(format_step(h));
+  std::vector<std::string> lines = history_lines();
   std::ostringstream msg;
+  if (history.empty()) throw NumericalError("SCF made no iteration", lines);
   const ScfStep& last = history.back();
   const double de = history.size() > 1 ? std::abs(last.energy - history[history.size() - 2].energy) : 0.0;
   msg << "SCF did not converge in " << opt.max_iterations << " iterations (";

@@ -6,6 +6,7 @@
 #include <cctype>
 #include <cmath>
 #include <cstdlib>
+#include <limits>
 #include <sstream>
 
 #include "stillpoint/errors.hpp"
@@ -78,6 +79,10 @@ std::vector<std::string> all_libxc_names() {
   return names;
 }
 
+// sqrt of the smallest sigma libxc may see; sigma = 1e-200 is only met at stationary points of
+// the density, where any GGA is finite.
+constexpr double kSigmaFloorRoot = 1e-100;
+
 // Thin RAII holder so a term can be copied into threads without re-initialising libxc.
 struct LibxcHandle {
   xc_func_type f{};
@@ -94,42 +99,82 @@ class LibxcTerm final : public XcTerm {
  public:
   LibxcTerm(int id, const XcSettings& settings) : id_(id), unpol_(id, XC_UNPOLARIZED), pol_(id, XC_POLARIZED) {
     if (!unpol_.ok || !pol_.ok) throw InputError("libxc could not initialise functional " + std::to_string(id));
+    if (const std::string why = libxc_refusal(id, settings.one_dimensional); !why.empty()) throw InputError(why);
     const xc_func_info_type* info = unpol_.f.info;
     family_ = xc_func_info_get_family(info);
     kind_ = xc_func_info_get_kind(info);
     char* nm = xc_functional_get_name(id);
     name_ = nm ? nm : std::to_string(id);
     std::free(nm);
-    if (family_ != XC_FAMILY_LDA && family_ != XC_FAMILY_GGA)
-      throw InputError("functional '" + name_ +
-                       "' is not a plain LDA or GGA (hybrids, meta-GGAs and others are not supported)");
-    if (kind_ == XC_KINETIC) throw InputError("functional '" + name_ + "' is a kinetic-energy functional, not exchange-correlation");
-    const int flags = xc_func_info_get_flags(info);
-    if (!(flags & XC_FLAGS_HAVE_FXC)) throw InputError("functional '" + name_ + "' has no second derivatives in this libxc");
-    const bool is1d = (flags & XC_FLAGS_1D) != 0;
-    if (is1d && !settings.one_dimensional)
-      throw InputError("functional '" + name_ + "' is a 1D functional; it cannot be used for a radial atom");
+    const bool is1d = (xc_func_info_get_flags(info) & XC_FLAGS_1D) != 0;
     double thr = settings.density_threshold;
     // PBE-type correlation returns NaN below ~1.4e-27 in libxc 5.2.3.
     if (family_ == XC_FAMILY_GGA && kind_ != XC_EXCHANGE) thr = std::max(thr, 1e-26);
     threshold_ = thr;
     for (LibxcHandle* h : {&unpol_, &pol_}) {
       xc_func_set_dens_threshold(&h->f, thr);
+      // libxc raises sigma to sigma_threshold^2 (1e-40 by default) but returns vsigma at the
+      // raised value: in a tail where sigma falls below that (He beyond 19 bohr) the energy no
+      // longer follows the density, and B88's vrho grows like 1/n (1e5 hartree at n = 1e-30).
+      // Only the density threshold may cut, so this floor must never be reached by a density
+      // above it.
+      xc_func_set_sigma_threshold(&h->f, kSigmaFloorRoot);
       if (is1d) configure_1d(h->f, settings.softening);
     }
+    tail_cut_ = probe_tail();
+    spin_floor_ = probe_minority_spin();
   }
+
+  /// Density below which this term is switched off (0: never). Only functionals whose potential
+  /// diverges in an exponentially decaying tail get one (see probe_tail).
+  double tail_cut() const override { return tail_cut_; }
 
   std::string name() const override { return name_; }
   bool needs_gradient() const override { return family_ == XC_FAMILY_GGA; }
 
   void accumulate(const XcPointData& in, double weight, int order, XcDerivatives& out) const override {
     if (in.np == 0 || weight == 0.0) return;
-    if (in.nspin == 1)
-      unpolarized(in, weight, order, out);
-    else if (kind_ == XC_EXCHANGE)
+    if (in.nspin == 2 && kind_ == XC_EXCHANGE) {
       spin_scaled(in, weight, order, out);
-    else
-      polarized(in, weight, order, out);
+      return;
+    }
+    if (tail_cut_ == 0.0) {
+      raw(in, weight, order, out);
+      return;
+    }
+    // Points below the cut are never evaluated: libxc may return NaN there.
+    const int ns = in.nspin, nsig = ns == 1 ? 1 : 3;
+    XcPointData kept;
+    kept.nspin = ns;
+    std::vector<std::size_t> at;
+    for (std::size_t i = 0; i < in.np; ++i) {
+      double n = 0.0;
+      for (int s = 0; s < ns; ++s) n += in.rho[ns * i + s];
+      if (!(n > tail_cut_)) continue;
+      at.push_back(i);
+      kept.rho.insert(kept.rho.end(), in.rho.begin() + ns * i, in.rho.begin() + ns * (i + 1));
+      if (!in.sigma.empty()) kept.sigma.insert(kept.sigma.end(), in.sigma.begin() + nsig * i, in.sigma.begin() + nsig * (i + 1));
+    }
+    kept.np = at.size();
+    if (kept.np == 0) return;
+    XcDerivatives t;
+    t.reset(ns, kept.np, gga(), order);
+    raw(kept, 1.0, order, t);
+    switch_off_tail(kept, order, t);
+    auto scatter = [&](const std::vector<double>& a, std::vector<double>& b, std::size_t per) {
+      for (std::size_t j = 0; j < at.size(); ++j)
+        for (std::size_t k = 0; k < per; ++k) b[per * at[j] + k] += weight * a[per * j + k];
+    };
+    scatter(t.e, out.e, 1);
+    scatter(t.vrho, out.vrho, ns);
+    if (gga()) scatter(t.vsigma, out.vsigma, nsig);
+    if (order >= 2) {
+      scatter(t.v2rho2, out.v2rho2, ns == 1 ? 1 : 3);
+      if (gga()) {
+        scatter(t.v2rhosigma, out.v2rhosigma, ns == 1 ? 1 : 6);
+        scatter(t.v2sigma2, out.v2sigma2, ns == 1 ? 1 : 6);
+      }
+    }
   }
 
  private:
@@ -147,6 +192,140 @@ class LibxcTerm final : public XcTerm {
       }
     }
   };
+
+  void raw(const XcPointData& in, double weight, int order, XcDerivatives& out) const {
+    if (in.nspin == 1)
+      unpolarized(in, weight, order, out);
+    else if (kind_ == XC_EXCHANGE)
+      spin_scaled(in, weight, order, out);
+    else
+      polarized(in, weight, order, out);
+  }
+
+  // Some functionals have potentials that grow without bound where the density decays
+  // exponentially (gradient expansions such as Herman's, G96, and others), and some libxc
+  // implementations return NaN or cancellation noise at very low densities; either way the
+  // self-consistent solution would depend on where the grid's density threshold happens to cut.
+  // The probe walks down model tails n = exp(-a r) (a = 1, 2, 4 bohr^-1, sigma = a^2 n^2) from
+  // n = 1e-3, unpolarized and fully polarized, and estimates the local potential
+  // v = vrho - a^2 d(2 vsigma a n)/d ln n. Where |v| first exceeds kTailPotential, or a value is
+  // not finite, the term is switched off smoothly below ten times that density (see
+  // switch_off_tail). Functionals whose tail potentials stay bounded (LDA, PBE, B88, LYP, ...)
+  // are untouched. Returns 0 (no cut) or the cut density.
+  double probe_tail() const {
+    constexpr double kTailPotential = 0.5;  // hartree; physical tail potentials are far smaller
+    const double lo = std::max(threshold_, 1e-30);
+    std::vector<double> dens;
+    for (double ln = std::log(1e-3); ln > std::log(lo) + 1e-9; ln -= 0.25) dens.push_back(std::exp(ln));
+    const std::size_t m = dens.size();
+    if (m < 3) return 0.0;
+    double bad = 0.0;  // highest density of a violation
+    auto walk = [&](bool polarized, double a) {
+      std::vector<double> rho, sigma;
+      for (double n : dens) {
+        if (polarized) {
+          rho.insert(rho.end(), {n, 0.0});
+          sigma.insert(sigma.end(), {a * a * n * n, 0.0, 0.0});
+        } else {
+          rho.push_back(n);
+          sigma.push_back(a * a * n * n);
+        }
+      }
+      Buffers b(m, polarized ? 2 : 1, 2);
+      eval(polarized ? pol_.f : unpol_.f, m, rho.data(), gga() ? sigma.data() : nullptr, 2, b);
+      const std::size_t vs = polarized ? 2 : 1, ss = polarized ? 3 : 1;
+      std::vector<double> flux(m, 0.0);
+      for (std::size_t j = 0; j < m; ++j) flux[j] = gga() ? 2.0 * b.vsigma[ss * j] * a * dens[j] : 0.0;
+      for (std::size_t j = 0; j < m; ++j) {
+        const std::size_t j0 = j == 0 ? 0 : j - 1, j1 = j + 1 == m ? j : j + 1;
+        const double v = b.vrho[vs * j] - a * a * (flux[j1] - flux[j0]) / (std::log(dens[j1]) - std::log(dens[j0]));
+        bool finite = std::isfinite(v) && std::isfinite(b.zk[j]) && std::isfinite(b.v2rho2[(polarized ? 3 : 1) * j]);
+        if (gga())
+          finite = finite && std::isfinite(b.v2sigma2[(polarized ? 6 : 1) * j]) &&
+                   std::isfinite(b.v2rhosigma[(polarized ? 6 : 1) * j]);
+        if (!finite || std::abs(v) > kTailPotential) {
+          bad = std::max(bad, dens[j]);
+          return;
+        }
+      }
+    };
+    for (double a : {1.0, 2.0, 4.0}) {
+      walk(false, a);
+      if (kind_ != XC_EXCHANGE) walk(true, a);  // exchange is spin-scaled from unpolarized calls
+    }
+    return bad > 0.0 ? 10.0 * bad : 0.0;
+  }
+
+  // Polarized correlation: the largest minority-spin density at which libxc returns a
+  // non-finite value beside a majority density of 1e-4..1e-14, times ten (0 if none); such a
+  // minority density is then treated as zero, which is libxc's own fully polarized limit.
+  double probe_minority_spin() const {
+    if (kind_ == XC_EXCHANGE) return 0.0;
+    double bad = 0.0;
+    for (double up : {1e-4, 1e-6, 1e-8, 1e-10, 1e-12, 1e-14})
+      for (double a : {1.0, 2.0, 4.0}) {
+        std::vector<double> rho, sigma;
+        for (double dn = up * 1e-3; dn > 1e-32; dn *= 0.1) {
+          rho.insert(rho.end(), {up, dn});
+          sigma.insert(sigma.end(), {a * a * up * up, a * a * up * dn, a * a * dn * dn});
+        }
+        const std::size_t m = rho.size() / 2;
+        Buffers b(m, 2, 2);
+        eval(pol_.f, m, rho.data(), gga() ? sigma.data() : nullptr, 2, b);
+        for (std::size_t j = 0; j < m; ++j) {
+          bool ok = std::isfinite(b.zk[j]) && std::isfinite(b.vrho[2 * j]) && std::isfinite(b.vrho[2 * j + 1]);
+          for (int k = 0; k < 3; ++k) ok = ok && std::isfinite(b.v2rho2[3 * j + k]);
+          if (gga())
+            for (int k = 0; k < 6; ++k) ok = ok && std::isfinite(b.v2rhosigma[6 * j + k]) && std::isfinite(b.v2sigma2[6 * j + k]);
+          if (!ok) bad = std::max(bad, rho[2 * j + 1]);
+        }
+      }
+    return bad > 0.0 ? 10.0 * bad : 0.0;
+  }
+
+  // e -> S(n) e with S = 0 below the tail cut, 1 above ten times it, and the quintic smoothstep
+  // in log10(n / cut) between: every derivative follows, so the potential and the kernel stay
+  // the exact derivatives of the discrete energy.
+  void switch_off_tail(const XcPointData& in, int order, XcDerivatives& t) const {
+    const int ns = in.nspin;
+    const double ln10 = std::log(10.0);
+    for (std::size_t i = 0; i < in.np; ++i) {
+      double n = 0.0;
+      for (int s = 0; s < ns; ++s) n += in.rho[ns * i + s];
+      const double x = n > 0.0 ? std::log10(n / tail_cut_) : -1.0;
+      if (x >= 1.0) continue;
+      double S = 0.0, dS = 0.0, d2S = 0.0;  // d/dn and d2/dn2
+      if (x > 0.0) {
+        S = x * x * x * (10.0 + x * (-15.0 + 6.0 * x));
+        const double Sx = 30.0 * x * x * (1.0 - x) * (1.0 - x);
+        const double Sxx = 60.0 * x * (1.0 - x) * (1.0 - 2.0 * x);
+        dS = Sx / (n * ln10);
+        d2S = (Sxx / (ln10 * ln10) - Sx / ln10) / (n * n);
+      }
+      const double e = t.e[i];
+      double v[2] = {t.vrho[ns * i], ns == 2 ? t.vrho[ns * i + 1] : 0.0};
+      if (order >= 2) {
+        const int n2 = ns == 1 ? 1 : 3;
+        for (int k = 0; k < n2; ++k) {
+          const int a = ns == 1 ? 0 : (k == 2 ? 1 : 0), b = ns == 1 ? 0 : (k == 0 ? 0 : 1);
+          t.v2rho2[n2 * i + k] = S * t.v2rho2[n2 * i + k] + dS * (v[a] + v[b]) + d2S * e;
+        }
+        if (gga()) {
+          const int nsig = ns == 1 ? 1 : 3;
+          for (int s = 0; s < ns; ++s)
+            for (int k = 0; k < nsig; ++k) {
+              double& x2 = t.v2rhosigma[(ns == 1 ? 1 : 6) * i + nsig * s + k];
+              x2 = S * x2 + dS * t.vsigma[nsig * i + k];
+            }
+          for (std::size_t k = 0; k < (ns == 1 ? 1u : 6u); ++k) t.v2sigma2[(ns == 1 ? 1 : 6) * i + k] *= S;
+        }
+      }
+      for (int s = 0; s < ns; ++s) t.vrho[ns * i + s] = S * v[s] + dS * e;
+      if (gga())
+        for (int k = 0; k < (ns == 1 ? 1 : 3); ++k) t.vsigma[(ns == 1 ? 1 : 3) * i + k] *= S;
+      t.e[i] = S * e;
+    }
+  }
 
   void configure_1d(xc_func_type& f, double a) const {
     const int n = xc_func_info_get_n_ext_params(f.info);
@@ -180,23 +359,36 @@ class LibxcTerm final : public XcTerm {
     }
   }
 
-  // Non-finite values can only come from points libxc should have screened; they would
-  // poison the SCF, so they are dropped like screened points.
-  static double finite(double v) { return std::isfinite(v) ? v : 0.0; }
+  // A non-finite value from libxc at a point above the density threshold is an error that
+  // names the functional and the point: dropping it would change the functional silently.
+  double finite(double v, const XcPointData& in, std::size_t i) const {
+    if (std::isfinite(v)) return v;
+    std::ostringstream m;
+    m.precision(6);
+    m << "libxc functional '" << name_ << "' returned a non-finite value at a point with density";
+    for (int s = 0; s < in.nspin; ++s) m << " " << in.rho[in.nspin * i + s];
+    if (gga() && !in.sigma.empty()) {
+      m << " and sigma";
+      const int ns = in.nspin == 1 ? 1 : 3;
+      for (int k = 0; k < ns; ++k) m << " " << in.sigma[ns * i + k];
+    }
+    m << " (bohr^-3, bohr^-8); raise [scf] density_threshold above that density";
+    throw NumericalError(m.str());
+  }
   bool gga() const { return family_ == XC_FAMILY_GGA; }
 
   void unpolarized(const XcPointData& in, double w, int order, XcDerivatives& out) const {
     Buffers b(in.np, 1, order);
     eval(unpol_.f, in.np, in.rho.data(), in.sigma.data(), order, b);
     for (std::size_t i = 0; i < in.np; ++i) {
-      out.e[i] += w * finite(b.zk[i] * in.rho[i]);
-      out.vrho[i] += w * finite(b.vrho[i]);
-      if (gga()) out.vsigma[i] += w * finite(b.vsigma[i]);
+      out.e[i] += w * finite(b.zk[i] * in.rho[i], in, i);
+      out.vrho[i] += w * finite(b.vrho[i], in, i);
+      if (gga()) out.vsigma[i] += w * finite(b.vsigma[i], in, i);
       if (order >= 2) {
-        out.v2rho2[i] += w * finite(b.v2rho2[i]);
+        out.v2rho2[i] += w * finite(b.v2rho2[i], in, i);
         if (gga()) {
-          out.v2rhosigma[i] += w * finite(b.v2rhosigma[i]);
-          out.v2sigma2[i] += w * finite(b.v2sigma2[i]);
+          out.v2rhosigma[i] += w * finite(b.v2rhosigma[i], in, i);
+          out.v2sigma2[i] += w * finite(b.v2sigma2[i], in, i);
         }
       }
     }
@@ -206,29 +398,36 @@ class LibxcTerm final : public XcTerm {
   // free of libxc's erratic polarized GGA exchange near full polarization.
   void spin_scaled(const XcPointData& in, double w, int order, XcDerivatives& out) const {
     const std::size_t np = in.np;
-    std::vector<double> rho(2 * np), sigma(gga() ? 2 * np : 0);
+    // Each spin as an unpolarized density 2 n_s, through the same path as unpolarized input
+    // (so the tail cut acts on each spin's own density, as the scaling relation demands).
+    XcPointData u;
+    u.nspin = 1;
+    u.np = 2 * np;
+    u.rho.resize(2 * np);
+    u.sigma.resize(gga() ? 2 * np : 0);
     for (std::size_t i = 0; i < np; ++i) {
-      rho[i] = 2.0 * in.rho[2 * i];
-      rho[np + i] = 2.0 * in.rho[2 * i + 1];
+      u.rho[i] = 2.0 * in.rho[2 * i];
+      u.rho[np + i] = 2.0 * in.rho[2 * i + 1];
       if (gga()) {
-        sigma[i] = 4.0 * in.sigma[3 * i];
-        sigma[np + i] = 4.0 * in.sigma[3 * i + 2];
+        u.sigma[i] = 4.0 * in.sigma[3 * i];
+        u.sigma[np + i] = 4.0 * in.sigma[3 * i + 2];
       }
     }
-    Buffers b(2 * np, 1, order);
-    eval(unpol_.f, 2 * np, rho.data(), gga() ? sigma.data() : nullptr, order, b);
+    XcDerivatives t;
+    t.reset(1, 2 * np, gga(), order);
+    accumulate(u, 1.0, order, t);
     for (std::size_t i = 0; i < np; ++i) {
       for (int s = 0; s < 2; ++s) {
         const std::size_t j = s * np + i;
-        if (rho[j] <= threshold_) continue;
-        out.e[i] += w * 0.5 * finite(b.zk[j] * rho[j]);
-        out.vrho[2 * i + s] += w * finite(b.vrho[j]);
-        if (gga()) out.vsigma[3 * i + 2 * s] += w * 2.0 * finite(b.vsigma[j]);
+        if (u.rho[j] <= threshold_) continue;
+        out.e[i] += w * 0.5 * t.e[j];
+        out.vrho[2 * i + s] += w * t.vrho[j];
+        if (gga()) out.vsigma[3 * i + 2 * s] += w * 2.0 * t.vsigma[j];
         if (order >= 2) {
-          out.v2rho2[3 * i + 2 * s] += w * 2.0 * finite(b.v2rho2[j]);
+          out.v2rho2[3 * i + 2 * s] += w * 2.0 * t.v2rho2[j];
           if (gga()) {
-            out.v2rhosigma[6 * i + 5 * s] += w * 4.0 * finite(b.v2rhosigma[j]);
-            out.v2sigma2[6 * i + 5 * s] += w * 8.0 * finite(b.v2sigma2[j]);
+            out.v2rhosigma[6 * i + 5 * s] += w * 4.0 * t.v2rhosigma[j];
+            out.v2sigma2[6 * i + 5 * s] += w * 8.0 * t.v2sigma2[j];
           }
         }
       }
@@ -244,7 +443,7 @@ class LibxcTerm final : public XcTerm {
     for (std::size_t i = 0; i < np; ++i) {
       const double tot = rho[2 * i] + rho[2 * i + 1];
       for (int s = 0; s < 2; ++s)
-        if (rho[2 * i + s] < 1e-14 * tot) {
+        if (rho[2 * i + s] < 1e-14 * tot || rho[2 * i + s] < spin_floor_) {
           rho[2 * i + s] = 0.0;
           zero_spin[2 * i + s] = 1;
           if (gga()) {
@@ -257,24 +456,24 @@ class LibxcTerm final : public XcTerm {
     eval(pol_.f, np, rho.data(), gga() ? sigma.data() : nullptr, order, b);
     for (std::size_t i = 0; i < np; ++i) {
       const double tot = rho[2 * i] + rho[2 * i + 1];
-      out.e[i] += w * finite(b.zk[i] * tot);
+      out.e[i] += w * finite(b.zk[i] * tot, in, i);
       // The potential of a vanishing spin is libxc's smooth fully polarized limit (it is what an
       // empty minority level feels in the tail); only second derivatives are masked below.
-      for (int s = 0; s < 2; ++s) out.vrho[2 * i + s] += w * finite(b.vrho[2 * i + s]);
+      for (int s = 0; s < 2; ++s) out.vrho[2 * i + s] += w * finite(b.vrho[2 * i + s], in, i);
       if (gga())
-        for (int k = 0; k < 3; ++k) out.vsigma[3 * i + k] += w * finite(b.vsigma[3 * i + k]);
+        for (int k = 0; k < 3; ++k) out.vsigma[3 * i + k] += w * finite(b.vsigma[3 * i + k], in, i);
       if (order >= 2) {
         for (int k = 0; k < 3; ++k) {
           // Minority second derivatives at zero spin density can be ~1e9; they multiply a
           // response that is identically zero, so mask them.
           const bool masked = (k == 0 && zero_spin[2 * i]) || (k == 2 && zero_spin[2 * i + 1]) ||
                               (k == 1 && (zero_spin[2 * i] || zero_spin[2 * i + 1]));
-          out.v2rho2[3 * i + k] += w * (masked ? 0.0 : finite(b.v2rho2[3 * i + k]));
+          out.v2rho2[3 * i + k] += w * (masked ? 0.0 : finite(b.v2rho2[3 * i + k], in, i));
         }
         if (gga())
           for (int k = 0; k < 6; ++k) {
-            out.v2rhosigma[6 * i + k] += w * finite(b.v2rhosigma[6 * i + k]);
-            out.v2sigma2[6 * i + k] += w * finite(b.v2sigma2[6 * i + k]);
+            out.v2rhosigma[6 * i + k] += w * finite(b.v2rhosigma[6 * i + k], in, i);
+            out.v2sigma2[6 * i + k] += w * finite(b.v2sigma2[6 * i + k], in, i);
           }
       }
     }
@@ -284,6 +483,8 @@ class LibxcTerm final : public XcTerm {
   LibxcHandle unpol_, pol_;
   int family_ = 0, kind_ = 0;
   double threshold_ = 0;
+  double tail_cut_ = 0;
+  double spin_floor_ = 0;  // polarized: a spin density below this is taken as exactly zero
   std::string name_;
 };
 
@@ -335,13 +536,105 @@ int resolve_libxc_id(const std::string& raw) {
   return id;
 }
 
+const char* family_name(int family) {
+  switch (family) {
+    case XC_FAMILY_LDA: return "LDA";
+    case XC_FAMILY_GGA: return "GGA";
+    case XC_FAMILY_MGGA: return "meta-GGA";
+    case XC_FAMILY_LCA: return "LCA";
+    case XC_FAMILY_OEP: return "OEP";
+    case XC_FAMILY_HYB_GGA: return "hybrid GGA";
+    case XC_FAMILY_HYB_MGGA: return "hybrid meta-GGA";
+    case XC_FAMILY_HYB_LDA: return "hybrid LDA";
+    default: return "unknown family";
+  }
+}
+
+const char* kind_name(int kind) {
+  switch (kind) {
+    case XC_EXCHANGE: return "exchange";
+    case XC_CORRELATION: return "correlation";
+    case XC_EXCHANGE_CORRELATION: return "exchange-correlation";
+    case XC_KINETIC: return "kinetic";
+    default: return "unknown kind";
+  }
+}
+
+int dimension_of(int flags) { return (flags & XC_FLAGS_1D) ? 1 : (flags & XC_FLAGS_2D) ? 2 : 3; }
+
+// What libxc says of functional `id`, read from an initialised unpolarized instance.
+struct LibxcInfo {
+  bool ok = false;
+  std::string name, description;
+  int family = 0, kind = 0, flags = 0;
+};
+
+LibxcInfo libxc_info(int id) {
+  LibxcInfo r;
+  char* nm = xc_functional_get_name(id);
+  if (!nm) return r;
+  r.name = nm;
+  std::free(nm);
+  LibxcHandle h(id, XC_UNPOLARIZED);
+  if (!h.ok) return r;
+  r.ok = true;
+  r.description = xc_func_info_get_name(h.f.info);
+  r.family = xc_func_info_get_family(h.f.info);
+  r.kind = xc_func_info_get_kind(h.f.info);
+  r.flags = xc_func_info_get_flags(h.f.info);
+  return r;
+}
+
 }  // namespace
+
+std::vector<LibxcEntry> libxc_catalog() {
+  const int n = xc_number_of_functionals();
+  std::vector<int> ids(static_cast<std::size_t>(n));
+  xc_available_functional_numbers(ids.data());
+  std::sort(ids.begin(), ids.end());
+  std::vector<LibxcEntry> out;
+  for (int id : ids) {
+    const LibxcInfo info = libxc_info(id);
+    if (!info.ok) continue;
+    LibxcEntry e;
+    e.id = id;
+    e.name = info.name;
+    e.description = info.description;
+    e.family = family_name(info.family);
+    e.kind = kind_name(info.kind);
+    e.dimension = dimension_of(info.flags);
+    out.push_back(std::move(e));
+  }
+  return out;
+}
+
+std::string libxc_refusal(int id, bool one_dimensional) {
+  const LibxcInfo info = libxc_info(id);
+  if (!info.ok) return "libxc has no usable functional number " + std::to_string(id);
+  const std::string what = "functional '" + info.name + "' (" + info.description + ")";
+  const int family = info.family, kind = info.kind, flags = info.flags;
+  if (family != XC_FAMILY_LDA && family != XC_FAMILY_GGA)
+    return what + " is a " + family_name(family) +
+           "; only LDA and GGA functionals are supported (hybrids, meta-GGAs and orbital functionals are not)";
+  if (kind == XC_KINETIC) return what + " is a kinetic-energy functional, not exchange-correlation";
+  if (!(flags & XC_FLAGS_HAVE_EXC))
+    return what + " defines a potential but no energy (libxc has no Exc for it); the SCF energies, "
+                  "the fits and the derivatives all need the energy";
+  if (!(flags & XC_FLAGS_HAVE_FXC))
+    return what + " has no second derivatives in this libxc; the response and the derivatives need them";
+  if (flags & XC_FLAGS_VV10) return what + " has a nonlocal (VV10) correlation part, which is not supported";
+  const int dim = dimension_of(flags), want = one_dimensional ? 1 : 3;
+  if (dim != want)
+    return what + " is a " + std::to_string(dim) + "D functional; " +
+           (one_dimensional ? "line systems need a 1D functional (lda_x_1d_soft, lda_c_1d_csc, ...)"
+                            : "radial atoms need a 3D functional");
+  return {};
+}
 
 std::unique_ptr<XcTerm> make_libxc_term(const std::string& name, const XcSettings& settings) {
   const int id = resolve_libxc_id(name);
   if (id == XC_LDA_X_1D_SOFT) {
-    if (!settings.one_dimensional)
-      throw InputError("functional 'lda_x_1d_soft' is a 1D functional; it cannot be used for a radial atom");
+    if (const std::string why = libxc_refusal(id, settings.one_dimensional); !why.empty()) throw InputError(why);
     if (!(settings.softening > 0)) throw InputError("lda_x_1d_soft needs a positive softening");
     return std::make_unique<SoftExchange1dTerm>(settings.softening);
   }
