@@ -79,6 +79,17 @@ std::vector<std::string> all_libxc_names() {
   return names;
 }
 
+// A tail switch (see LibxcTerm::probe_tail) above this density would change total energies
+// noticeably; such functionals are refused instead.
+constexpr double kLargestTailCut = 1e-6;
+
+// Largest |d e / d n_s| or |d e / d sigma| taken from libxc's fully polarized limit for a spin
+// that is absent at a point (hartree, hartree bohr^5); beyond it the limit is not physical.
+constexpr double kAbsentSpinLimit = 1e3;
+
+// Static refusal rules (libxc's family, kind and flags); libxc_refusal adds the tail probe.
+std::string flag_refusal(int id, bool one_dimensional);
+
 // sqrt of the smallest sigma libxc may see; sigma = 1e-200 is only met at stationary points of
 // the density, where any GGA is finite.
 constexpr double kSigmaFloorRoot = 1e-100;
@@ -99,7 +110,7 @@ class LibxcTerm final : public XcTerm {
  public:
   LibxcTerm(int id, const XcSettings& settings) : id_(id), unpol_(id, XC_UNPOLARIZED), pol_(id, XC_POLARIZED) {
     if (!unpol_.ok || !pol_.ok) throw InputError("libxc could not initialise functional " + std::to_string(id));
-    if (const std::string why = libxc_refusal(id, settings.one_dimensional); !why.empty()) throw InputError(why);
+    if (const std::string why = flag_refusal(id, settings.one_dimensional); !why.empty()) throw InputError(why);
     const xc_func_info_type* info = unpol_.f.info;
     family_ = xc_func_info_get_family(info);
     kind_ = xc_func_info_get_kind(info);
@@ -122,7 +133,15 @@ class LibxcTerm final : public XcTerm {
       if (is1d) configure_1d(h->f, settings.softening);
     }
     tail_cut_ = probe_tail();
-    spin_floor_ = probe_minority_spin();
+    minority_ratio_ = probe_minority_ratio();
+    if (tail_cut_ > kLargestTailCut) {
+      std::ostringstream m;
+      m << "functional '" << name_ << "' (" << xc_func_info_get_name(info)
+        << ") has potentials or energies above 0.5 hartree (or rounding noise, or NaN) in exponentially "
+           "decaying tails at densities up to "
+        << tail_cut_ / 10.0 << " bohr^-3; switching it off there would change its energies, so it is refused";
+      throw InputError(m.str());
+    }
   }
 
   /// Density below which this term is switched off (0: never). Only functionals whose potential
@@ -206,14 +225,15 @@ class LibxcTerm final : public XcTerm {
   // exponentially (gradient expansions such as Herman's, G96, and others), and some libxc
   // implementations return NaN or cancellation noise at very low densities; either way the
   // self-consistent solution would depend on where the grid's density threshold happens to cut.
-  // The probe walks down model tails n = exp(-a r) (a = 1, 2, 4 bohr^-1, sigma = a^2 n^2) from
+  // The probe walks down model tails n = exp(-a r) (a = 1, 2, 2.8 bohr^-1, sigma = a^2 n^2) from
   // n = 1e-3, unpolarized and fully polarized, and estimates the local potential
-  // v = vrho - a^2 d(2 vsigma a n)/d ln n. Where |v| first exceeds kTailPotential, or a value is
-  // not finite, the term is switched off smoothly below ten times that density (see
+  // v = vrho - a^2 d(2 vsigma a n)/d ln n. Where |v| first exceeds kTailPotential, the curve
+  // turns rough (rounding noise), or a value is not finite, the term is switched off smoothly below ten times that density (see
   // switch_off_tail). Functionals whose tail potentials stay bounded (LDA, PBE, B88, LYP, ...)
   // are untouched. Returns 0 (no cut) or the cut density.
   double probe_tail() const {
     constexpr double kTailPotential = 0.5;  // hartree; physical tail potentials are far smaller
+    constexpr double kTailNoise = 1e-3;     // hartree, second difference per step of 0.25 in ln n
     const double lo = std::max(threshold_, 1e-30);
     std::vector<double> dens;
     for (double ln = std::log(1e-3); ln > std::log(lo) + 1e-9; ln -= 0.25) dens.push_back(std::exp(ln));
@@ -236,51 +256,63 @@ class LibxcTerm final : public XcTerm {
       const std::size_t vs = polarized ? 2 : 1, ss = polarized ? 3 : 1;
       std::vector<double> flux(m, 0.0);
       for (std::size_t j = 0; j < m; ++j) flux[j] = gga() ? 2.0 * b.vsigma[ss * j] * a * dens[j] : 0.0;
+      std::vector<double> v(m);
       for (std::size_t j = 0; j < m; ++j) {
         const std::size_t j0 = j == 0 ? 0 : j - 1, j1 = j + 1 == m ? j : j + 1;
-        const double v = b.vrho[vs * j] - a * a * (flux[j1] - flux[j0]) / (std::log(dens[j1]) - std::log(dens[j0]));
-        bool finite = std::isfinite(v) && std::isfinite(b.zk[j]) && std::isfinite(b.v2rho2[(polarized ? 3 : 1) * j]);
+        v[j] = b.vrho[vs * j] - a * a * (flux[j1] - flux[j0]) / (std::log(dens[j1]) - std::log(dens[j0]));
+      }
+      for (std::size_t j = 0; j < m; ++j) {
+        // Rounding noise (cancellation in some libxc forms at huge r_s) shows as a rough curve.
+        // Only far below any density that matters: real potentials curve at higher densities.
+        const double rough =
+            j > 0 && j + 1 < m && dens[j] < 1e-12 ? std::abs(v[j + 1] - 2.0 * v[j] + v[j - 1]) : 0.0;
+        bool finite = std::isfinite(v[j]) && std::isfinite(b.zk[j]) && std::isfinite(b.v2rho2[(polarized ? 3 : 1) * j]);
         if (gga())
           finite = finite && std::isfinite(b.v2sigma2[(polarized ? 6 : 1) * j]) &&
                    std::isfinite(b.v2rhosigma[(polarized ? 6 : 1) * j]);
-        if (!finite || std::abs(v) > kTailPotential) {
+        // The energy per particle too: the switch below multiplies it by dS/dn.
+        if (!finite || !(std::abs(v[j]) <= kTailPotential) || !(std::abs(b.zk[j]) <= kTailPotential) ||
+            !(rough <= kTailNoise + 0.05 * std::abs(v[j]))) {
           bad = std::max(bad, dens[j]);
           return;
         }
       }
     };
-    for (double a : {1.0, 2.0, 4.0}) {
+    for (double a : {1.0, 2.0, 2.8}) {  // 2 sqrt(2 I) for ionization energies 0.1..1 hartree
       walk(false, a);
       if (kind_ != XC_EXCHANGE) walk(true, a);  // exchange is spin-scaled from unpolarized calls
     }
     return bad > 0.0 ? 10.0 * bad : 0.0;
   }
 
-  // Polarized correlation: the largest minority-spin density at which libxc returns a
-  // non-finite value beside a majority density of 1e-4..1e-14, times ten (0 if none); such a
-  // minority density is then treated as zero, which is libxc's own fully polarized limit.
-  double probe_minority_spin() const {
+  // Polarized correlation: the largest ratio n_minority / n_majority at which libxc returns a
+  // non-finite value (majority densities 1e-2..1e-20, model tails of several decay constants),
+  // times ten (0 if none). A minority density below that fraction is then taken as exactly
+  // zero, libxc's own fully polarized limit; it carries no electron anyone could see.
+  double probe_minority_ratio() const {
     if (kind_ == XC_EXCHANGE) return 0.0;
-    double bad = 0.0;
-    for (double up : {1e-4, 1e-6, 1e-8, 1e-10, 1e-12, 1e-14})
-      for (double a : {1.0, 2.0, 4.0}) {
-        std::vector<double> rho, sigma;
-        for (double dn = up * 1e-3; dn > 1e-32; dn *= 0.1) {
-          rho.insert(rho.end(), {up, dn});
-          sigma.insert(sigma.end(), {a * a * up * up, a * a * up * dn, a * a * dn * dn});
-        }
-        const std::size_t m = rho.size() / 2;
-        Buffers b(m, 2, 2);
-        eval(pol_.f, m, rho.data(), gga() ? sigma.data() : nullptr, 2, b);
-        for (std::size_t j = 0; j < m; ++j) {
-          bool ok = std::isfinite(b.zk[j]) && std::isfinite(b.vrho[2 * j]) && std::isfinite(b.vrho[2 * j + 1]);
-          for (int k = 0; k < 3; ++k) ok = ok && std::isfinite(b.v2rho2[3 * j + k]);
-          if (gga())
-            for (int k = 0; k < 6; ++k) ok = ok && std::isfinite(b.v2rhosigma[6 * j + k]) && std::isfinite(b.v2sigma2[6 * j + k]);
-          if (!ok) bad = std::max(bad, rho[2 * j + 1]);
-        }
-      }
-    return bad > 0.0 ? 10.0 * bad : 0.0;
+    double worst = 0.0;
+    std::vector<double> rho, sigma;
+    for (double up = 1e-2; up > 1e-21; up *= 0.1)
+      for (double au : {1.0, 2.0})
+        for (double ad : {1.0, 2.0, 4.0})
+          for (double dn = up * 1e-3; dn > 1e-32; dn *= 0.1) {
+            rho.insert(rho.end(), {up, dn});
+            sigma.insert(sigma.end(), {au * au * up * up, au * ad * up * dn, ad * ad * dn * dn});
+          }
+    const std::size_t m = rho.size() / 2;
+    Buffers b(m, 2, 2);
+    eval(pol_.f, m, rho.data(), gga() ? sigma.data() : nullptr, 2, b);
+    for (std::size_t j = 0; j < m; ++j) {
+      bool ok = std::isfinite(b.zk[j]) && std::isfinite(b.vrho[2 * j]) && std::isfinite(b.vrho[2 * j + 1]);
+      for (int k = 0; k < 3; ++k) ok = ok && std::isfinite(b.v2rho2[3 * j + k]);
+      if (gga())
+        for (int k = 0; k < 6; ++k)
+          ok = ok && std::isfinite(b.v2rhosigma[6 * j + k]) && std::isfinite(b.v2sigma2[6 * j + k]) &&
+               std::isfinite(b.vsigma[3 * (j) + k % 3]);
+      if (!ok) worst = std::max(worst, rho[2 * j + 1] / rho[2 * j]);
+    }
+    return worst > 0.0 ? std::min(10.0 * worst, 1e-3) : 0.0;
   }
 
   // e -> S(n) e with S = 0 below the tail cut, 1 above ten times it, and the quintic smoothstep
@@ -364,7 +396,7 @@ class LibxcTerm final : public XcTerm {
   double finite(double v, const XcPointData& in, std::size_t i) const {
     if (std::isfinite(v)) return v;
     std::ostringstream m;
-    m.precision(6);
+    m.precision(17);
     m << "libxc functional '" << name_ << "' returned a non-finite value at a point with density";
     for (int s = 0; s < in.nspin; ++s) m << " " << in.rho[in.nspin * i + s];
     if (gga() && !in.sigma.empty()) {
@@ -443,7 +475,7 @@ class LibxcTerm final : public XcTerm {
     for (std::size_t i = 0; i < np; ++i) {
       const double tot = rho[2 * i] + rho[2 * i + 1];
       for (int s = 0; s < 2; ++s)
-        if (rho[2 * i + s] < 1e-14 * tot || rho[2 * i + s] < spin_floor_) {
+        if (rho[2 * i + s] < std::max(1e-14, minority_ratio_) * tot) {
           rho[2 * i + s] = 0.0;
           zero_spin[2 * i + s] = 1;
           if (gga()) {
@@ -454,26 +486,38 @@ class LibxcTerm final : public XcTerm {
     }
     Buffers b(np, 2, order);
     eval(pol_.f, np, rho.data(), gga() ? sigma.data() : nullptr, order, b);
+    // Spins each sigma component involves: uu -> up, ud -> both, dd -> down.
+    static constexpr int kSigmaSpins[3] = {1, 3, 2};
+    static constexpr int kPair[6][2] = {{0, 0}, {0, 1}, {0, 2}, {1, 1}, {1, 2}, {2, 2}};
     for (std::size_t i = 0; i < np; ++i) {
       const double tot = rho[2 * i] + rho[2 * i + 1];
+      const int absent = (zero_spin[2 * i] ? 1 : 0) | (zero_spin[2 * i + 1] ? 2 : 0);
+      // A derivative with respect to an absent spin is libxc's fully polarized limit where it
+      // has one (what an empty minority level feels in the tail). Where it has none (B97-type
+      // same-spin terms give NaN at n_s = 0) it is 0: the exact derivative of the discrete rule,
+      // under which a spin below the floor counts as absent and the energy does not depend on it.
+      // A limit larger than any physical potential (LYP-type (1 - zeta) terms) is no limit either.
+      auto limit = [&](double v, int spins) {
+        return (spins & absent) && !(std::abs(v) <= kAbsentSpinLimit) ? 0.0 : finite(v, in, i);
+      };
       out.e[i] += w * finite(b.zk[i] * tot, in, i);
-      // The potential of a vanishing spin is libxc's smooth fully polarized limit (it is what an
-      // empty minority level feels in the tail); only second derivatives are masked below.
-      for (int s = 0; s < 2; ++s) out.vrho[2 * i + s] += w * finite(b.vrho[2 * i + s], in, i);
+      for (int s = 0; s < 2; ++s) out.vrho[2 * i + s] += w * limit(b.vrho[2 * i + s], 1 << s);
       if (gga())
-        for (int k = 0; k < 3; ++k) out.vsigma[3 * i + k] += w * finite(b.vsigma[3 * i + k], in, i);
+        for (int k = 0; k < 3; ++k) out.vsigma[3 * i + k] += w * limit(b.vsigma[3 * i + k], kSigmaSpins[k]);
       if (order >= 2) {
         for (int k = 0; k < 3; ++k) {
-          // Minority second derivatives at zero spin density can be ~1e9; they multiply a
-          // response that is identically zero, so mask them.
-          const bool masked = (k == 0 && zero_spin[2 * i]) || (k == 2 && zero_spin[2 * i + 1]) ||
-                              (k == 1 && (zero_spin[2 * i] || zero_spin[2 * i + 1]));
-          out.v2rho2[3 * i + k] += w * (masked ? 0.0 : finite(b.v2rho2[3 * i + k], in, i));
+          // Second derivatives in an absent spin can be ~1e9; they multiply a response that is
+          // identically zero, so mask them.
+          const int spins = k == 0 ? 1 : k == 1 ? 3 : 2;
+          out.v2rho2[3 * i + k] += w * ((spins & absent) ? 0.0 : finite(b.v2rho2[3 * i + k], in, i));
         }
         if (gga())
           for (int k = 0; k < 6; ++k) {
-            out.v2rhosigma[6 * i + k] += w * finite(b.v2rhosigma[6 * i + k], in, i);
-            out.v2sigma2[6 * i + k] += w * finite(b.v2sigma2[6 * i + k], in, i);
+            const int rs = (1 << (k / 3)) | kSigmaSpins[k % 3];
+            const int ss = kSigmaSpins[kPair[k][0]] | kSigmaSpins[kPair[k][1]];
+            // Second derivatives in an absent spin: 0, the derivative of the discrete rule.
+            out.v2rhosigma[6 * i + k] += w * ((rs & absent) ? 0.0 : finite(b.v2rhosigma[6 * i + k], in, i));
+            out.v2sigma2[6 * i + k] += w * ((ss & absent) ? 0.0 : finite(b.v2sigma2[6 * i + k], in, i));
           }
       }
     }
@@ -484,7 +528,7 @@ class LibxcTerm final : public XcTerm {
   int family_ = 0, kind_ = 0;
   double threshold_ = 0;
   double tail_cut_ = 0;
-  double spin_floor_ = 0;  // polarized: a spin density below this is taken as exactly zero
+  double minority_ratio_ = 0;  // polarized: a spin below this fraction of the total is taken as zero
   std::string name_;
 };
 
@@ -609,6 +653,21 @@ std::vector<LibxcEntry> libxc_catalog() {
 }
 
 std::string libxc_refusal(int id, bool one_dimensional) {
+  if (std::string why = flag_refusal(id, one_dimensional); !why.empty()) return why;
+  if (id == XC_LDA_X_1D_SOFT) return {};  // tabulated in soft_exchange_1d, not evaluated by libxc
+  XcSettings settings;
+  settings.one_dimensional = one_dimensional;
+  try {
+    (void)make_libxc_term(std::to_string(id), settings);
+  } catch (const InputError& e) {
+    return e.what();
+  }
+  return {};
+}
+
+namespace {
+
+std::string flag_refusal(int id, bool one_dimensional) {
   const LibxcInfo info = libxc_info(id);
   if (!info.ok) return "libxc has no usable functional number " + std::to_string(id);
   const std::string what = "functional '" + info.name + "' (" + info.description + ")";
@@ -631,10 +690,12 @@ std::string libxc_refusal(int id, bool one_dimensional) {
   return {};
 }
 
+}  // namespace
+
 std::unique_ptr<XcTerm> make_libxc_term(const std::string& name, const XcSettings& settings) {
   const int id = resolve_libxc_id(name);
   if (id == XC_LDA_X_1D_SOFT) {
-    if (const std::string why = libxc_refusal(id, settings.one_dimensional); !why.empty()) throw InputError(why);
+    if (const std::string why = flag_refusal(id, settings.one_dimensional); !why.empty()) throw InputError(why);
     if (!(settings.softening > 0)) throw InputError("lda_x_1d_soft needs a positive softening");
     return std::make_unique<SoftExchange1dTerm>(settings.softening);
   }
