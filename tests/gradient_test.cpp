@@ -327,3 +327,15 @@ TEST(ImplicitGradient, AtomGridPotential) {
     expect_gradients_agree({s}, ps, all_outputs(s), sp::ResponseOptions::Chi0Method::Automatic, pol ? "N grid" : "Ne grid");
   }
 }
+
+// BLYP through the SCF: the weights of the B88 and LYP terms, closed and open shell.
+TEST(ImplicitGradient, AtomBlypWeights) {
+  for (bool pol : {false, true}) {
+    sp::SystemSpec s = atom(pol ? 7 : 10, pol, true);
+    s.xc = {"gga_x_b88", "gga_c_lyp"};
+    expect_gradients_agree({s},
+                           {param(sp::ParameterRef::Kind::XcWeight, 0, "", "w_b88"),
+                            param(sp::ParameterRef::Kind::XcWeight, 1, "", "w_lyp")},
+                           all_outputs(s), sp::ResponseOptions::Chi0Method::Automatic, pol ? "N BLYP" : "Ne BLYP");
+  }
+}

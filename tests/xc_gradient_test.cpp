@@ -272,7 +272,9 @@ sp::XcFunctional functional(const std::vector<std::string>& names, bool one_dime
 }
 
 const std::vector<std::vector<std::string>> kRadialFunctionals = {
-    {"lda_x", "lda_c_vwn"}, {"lda_x", "lda_c_pw"}, {"gga_x_pbe", "gga_c_pbe"}, {"gga_x_b88"}};
+    {"lda_x", "lda_c_vwn"}, {"lda_x", "lda_c_pw"}, {"gga_x_pbe", "gga_c_pbe"}, {"gga_x_b88"},
+    // BLYP; G96 and HCTH/407 carry a tail switch (the potential must stay the exact gradient).
+    {"gga_x_b88", "gga_c_lyp"}, {"gga_x_g96"}, {"gga_xc_hcth_407"}};
 const std::vector<std::vector<std::string>> kLineFunctionals = {
     {"lda_x_1d_soft", "lda_c_1d_csc"}, {"model:pbe_x", "model:pw92_c"}, {"model:b88_x"}};  // 3D forms as models: libxc refuses them on the line
 

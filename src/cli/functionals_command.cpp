@@ -19,7 +19,7 @@ int run_functionals(const FunctionalsCommandOptions& o) {
       std::cout << e.id << "  " << e.name << "  (" << e.family << " " << e.kind << ", " << e.description << "): ";
       if (r3.empty()) std::cout << "usable for atoms\n";
       else if (r1.empty()) std::cout << "usable for line systems\n";
-      else std::cout << "refused: " << r3 << "\n";
+      else std::cout << "refused: " << (e.dimension == 1 ? r1 : r3) << "\n";
     }
     return 0;
   }

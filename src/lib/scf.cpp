@@ -108,6 +108,9 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
   // back there with half the mixing and no Pulay history, at most kMaxRestarts times.
   constexpr double kDivergence = 1e3;
   constexpr int kMaxRestarts = 4;
+  constexpr std::size_t kStagnation = 30;
+  int last_restart = 0;
+  std::vector<double> best_trail;  // best residual after each iteration
   std::vector<Eigen::VectorXd> best_v = v_in;
   std::vector<EigenWarmStart> best_warm = warm;
   int best_iteration = 0, restarts = 0;
@@ -134,6 +137,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       throw NumericalError(msg.str(), history_lines());
     }
     mixing *= 0.5;
+    last_restart = it;
     v_in = best_v;
     warm = best_warm;
     hist_v.clear();
@@ -192,6 +196,20 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     if (best_iteration > 0 && step.residual > kDivergence * best_residual) {
       std::ostringstream what;
       what << "residual " << step.residual << " Ha grew by more than " << kDivergence << " over the best";
+      restart(it, what.str());
+      continue;
+    }
+    // Stagnation (Pulay cycling between a few states) gets the same damped restart.
+    // Stagnation: the best residual has not halved in kStagnation iterations (Pulay cycling, or
+    // a steep tail potential that the mixing overshoots). Not near the tolerance, where
+    // rounding noise alone can hold the residual up.
+    best_trail.push_back(best_residual);
+    const std::size_t since = static_cast<std::size_t>(it - last_restart);
+    if (best_iteration > 0 && since > kStagnation && best_trail.size() > kStagnation &&
+        best_residual > 1e3 * opt.potential_tolerance &&
+        best_residual > 0.5 * best_trail[best_trail.size() - 1 - kStagnation]) {
+      std::ostringstream what;
+      what << "the best residual did not halve in " << kStagnation << " iterations";
       restart(it, what.str());
       continue;
     }

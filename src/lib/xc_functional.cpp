@@ -134,6 +134,13 @@ class LibxcTerm final : public XcTerm {
     }
     tail_cut_ = probe_tail();
     minority_ratio_ = probe_minority_ratio();
+    if (const double n = probe_collapse(is1d); n > 0.0) {
+      std::ostringstream m;
+      m << "functional '" << name_ << "' (" << xc_func_info_get_name(info) << ") has an energy density that falls "
+        << "below minus the kinetic energy density of the uniform gas at n = " << n << (is1d ? " bohr^-1" : " bohr^-3")
+        << " (it is a fit outside its range there): the Kohn-Sham energy has no lower bound, so it is refused";
+      throw InputError(m.str());
+    }
     if (tail_cut_ > kLargestTailCut) {
       std::ostringstream m;
       m << "functional '" << name_ << "' (" << xc_func_info_get_name(info)
@@ -270,8 +277,9 @@ class LibxcTerm final : public XcTerm {
         if (gga())
           finite = finite && std::isfinite(b.v2sigma2[(polarized ? 6 : 1) * j]) &&
                    std::isfinite(b.v2rhosigma[(polarized ? 6 : 1) * j]);
-        // The energy per particle too: the switch below multiplies it by dS/dn.
-        if (!finite || !(std::abs(v[j]) <= kTailPotential) || !(std::abs(b.zk[j]) <= kTailPotential) ||
+        // The energy per particle too (the switch below adds e dS/dn to the potential), with
+        // more room: it may grow slowly where the potential stays moderate (G96).
+        if (!finite || !(std::abs(v[j]) <= kTailPotential) || !(std::abs(b.zk[j]) <= 10.0 * kTailPotential) ||
             !(rough <= kTailNoise + 0.05 * std::abs(v[j]))) {
           bad = std::max(bad, dens[j]);
           return;
@@ -283,6 +291,27 @@ class LibxcTerm final : public XcTerm {
       if (kind_ != XC_EXCHANGE) walk(true, a);  // exchange is spin-scaled from unpolarized calls
     }
     return bad > 0.0 ? 10.0 * bad : 0.0;
+  }
+
+  // A density at which e(n) < -t(n), the kinetic energy density of the uniform gas (1D:
+  // pi^2 n^3 / 24, 3D: (3/10)(3 pi^2)^(2/3) n^(5/3)), for a uniform density of 1..1e6 bohr^-d;
+  // 0 when there is none. Such a functional makes the energy unbounded below (collapse).
+  double probe_collapse(bool one_d) const {
+    std::vector<double> rho, sigma;
+    for (double n = 1.0; n <= 1e6; n *= 10.0) {
+      rho.push_back(n);
+      sigma.push_back(0.0);
+    }
+    const std::size_t m = rho.size();
+    Buffers b(m, 1, 1);
+    eval(unpol_.f, m, rho.data(), gga() ? sigma.data() : nullptr, 1, b);
+    const double pi = 3.14159265358979323846;
+    for (std::size_t j = 0; j < m; ++j) {
+      const double n = rho[j];
+      const double t = one_d ? pi * pi * n * n * n / 24.0 : 0.3 * std::pow(3.0 * pi * pi, 2.0 / 3.0) * std::pow(n, 5.0 / 3.0);
+      if (std::isfinite(b.zk[j]) && b.zk[j] * n < -t) return n;
+    }
+    return 0.0;
   }
 
   // Polarized correlation: the largest ratio n_minority / n_majority at which libxc returns a

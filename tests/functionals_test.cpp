@@ -1,0 +1,206 @@
+// Every libxc functional a user may name: either it converges with default settings, or it is
+// refused before the SCF with a specific reason. The full sweep over the installed libxc is a
+// long check; the fast suite covers the most used LDAs and GGAs and the refusal rules. BLYP is
+// cross-checked by relations that hold for any correct implementation (virial theorem for
+// scaling-correct exchange, Janak's theorem, grid convergence) and by published energies.
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+#include "stillpoint/atom_config.hpp"
+#include "stillpoint/errors.hpp"
+#include "stillpoint/functional_survey.hpp"
+#include "stillpoint/grid_presets.hpp"
+#include "stillpoint/scf.hpp"
+
+namespace sp = stillpoint;
+
+namespace {
+
+sp::SystemSpec atom(int Z, std::vector<std::string> xc, bool polarized, const std::string& grid = "default") {
+  sp::SystemSpec s;
+  s.name = "atom";
+  s.geometry = sp::Geometry::Radial;
+  s.atom.Z = Z;
+  s.atom.configuration = sp::parse_configuration(sp::default_configuration(Z, 0));
+  s.spin_polarized = polarized;
+  s.xc = std::move(xc);
+  s.grid = sp::grid_preset(sp::Geometry::Radial, grid);
+  return s;
+}
+
+// Tight enough for the 1e-8 comparisons below, above the rounding floor of GGA tails.
+sp::ScfOptions tight() {
+  sp::ScfOptions o;
+  o.potential_tolerance = 1e-11;
+  o.energy_tolerance = 1e-12;
+  o.eigenvalue_tolerance = 1e-11;
+  o.max_iterations = 400;
+  return o;
+}
+
+std::string refusal_of(const std::string& name, bool line) {
+  sp::XcSettings xs;
+  xs.one_dimensional = line;
+  try {
+    (void)sp::make_functional({name}, xs);
+  } catch (const sp::InputError& e) {
+    return e.what();
+  }
+  return {};
+}
+
+sp::LibxcEntry entry(const std::string& name) {
+  for (const auto& e : sp::libxc_catalog())
+    if (e.name == name) return e;
+  ADD_FAILURE() << "libxc has no " << name;
+  return {};
+}
+
+}  // namespace
+
+// The refusal rules follow libxc's own family, kind, flags and dimensionality.
+TEST(Functionals, RefusalsNameTheReason) {
+  struct Case {
+    const char* name;
+    bool line;
+    const char* words;
+  };
+  for (const Case& c : {Case{"gga_x_lb", false, "no energy"},  // LB94 is a model potential
+                        Case{"hyb_gga_xc_b3lyp", false, "hybrid GGA"},
+                        Case{"mgga_x_scan", false, "meta-GGA"},
+                        Case{"gga_k_tfvw", false, "kinetic-energy"},
+                        Case{"gga_xc_vv10", false, "VV10"},
+                        Case{"lda_x_2d", false, "2D functional"},
+                        Case{"lda_x_2d", true, "2D functional"},
+                        Case{"lda_c_2d_amgb", true, "2D functional"},
+                        Case{"lda_x", true, "3D functional"},
+                        Case{"lda_c_vwn", true, "3D functional"},
+                        Case{"gga_x_pbe", true, "3D functional"},
+                        Case{"lda_x_1d_soft", false, "1D functional"},
+                        Case{"lda_c_1d_csc", false, "1D functional"},
+                        // Herman's gradient expansion: its potential diverges in every tail.
+                        Case{"gga_x_herman", false, "exponentially decaying tails"}}) {
+    const std::string why = refusal_of(c.name, c.line);
+    EXPECT_NE(why.find(c.words), std::string::npos) << c.name << (c.line ? " (line)" : " (atom)") << ": '" << why << "'";
+    EXPECT_EQ(why, sp::libxc_refusal(entry(c.name).id, c.line)) << c.name;
+  }
+  EXPECT_EQ(refusal_of("gga_x_b88", false), "");
+  EXPECT_EQ(refusal_of("lda_c_1d_csc", true), "");
+}
+
+// The most used functionals (exchange and correlation parts each, correlation paired with
+// Slater exchange) converge with every default on He, N (polarized), Ne and Ar.
+TEST(Functionals, CommonOnesConvergeWithDefaults) {
+  const auto systems = sp::survey_systems("quick");
+  for (const char* name :
+       {"lda_x", "lda_c_vwn", "lda_c_vwn_rpa", "lda_c_pw", "lda_c_pz", "gga_x_pbe", "gga_c_pbe", "gga_x_pbe_sol",
+        "gga_c_pbe_sol", "gga_x_pbe_r", "gga_x_rpbe", "gga_x_pw91", "gga_c_pw91", "gga_x_b88", "gga_c_lyp", "gga_c_p86",
+        "gga_x_optx", "gga_x_g96", "gga_xc_hcth_93", "gga_xc_hcth_120", "gga_xc_hcth_147", "gga_xc_hcth_407",
+        "gga_x_sogga", "gga_x_n12", "gga_c_n12", "gga_x_am05", "gga_c_am05", "gga_xc_b97_d", "gga_xc_kt2", "gga_x_mpbe"}) {
+    const sp::SurveyRow r = sp::survey_functional(entry(name), systems);
+    EXPECT_EQ(r.refusal, "") << name;
+    for (const auto& o : r.outcomes) EXPECT_TRUE(o.converged) << name << " on " << o.system << ": " << o.error;
+  }
+}
+
+// Functional pairs as users name them, including the ones that used to diverge (BLYP, BP86,
+// G96LYP, AM05), on atoms from H to Kr, unpolarized and polarized.
+TEST(Functionals, NamedPairsConvergeOnAtoms) {
+  const std::vector<std::vector<std::string>> pairs = {
+      {"gga_x_b88", "gga_c_lyp"}, {"gga_x_b88", "gga_c_p86"}, {"gga_x_am05", "gga_c_am05"}, {"gga_x_optx", "gga_c_lyp"}};
+  for (const auto& xc : pairs)
+    for (int Z : {1, 7, 18})
+      for (bool pol : {false, true}) {
+        const sp::KsProblem P(atom(Z, xc, pol));
+        EXPECT_NO_THROW((void)sp::solve_scf(P)) << xc[0] << "+" << xc[1] << " Z = " << Z << (pol ? " polarized" : "");
+      }
+  const sp::KsProblem kr(atom(36, {"gga_x_b88", "gga_c_lyp"}, false));
+  EXPECT_NO_THROW((void)sp::solve_scf(kr)) << "BLYP Kr";
+}
+
+// Every 1D functional of libxc converges on the line atoms (H to Be, both spin settings).
+TEST(Functionals, OneDimensionalFunctionalsConvergeOnLines) {
+  const auto systems = sp::survey_systems("lines");
+  int usable = 0;
+  for (const auto& e : sp::libxc_catalog()) {
+    if (e.dimension != 1 || (e.family != "LDA" && e.family != "GGA")) continue;
+    const sp::SurveyRow r = sp::survey_functional(e, systems);
+    if (!r.refusal.empty()) continue;
+    ++usable;
+    for (const auto& o : r.outcomes) EXPECT_TRUE(o.converged) << e.name << " on " << o.system << ": " << o.error;
+  }
+  EXPECT_GE(usable, 3);
+}
+
+// The whole list, by number from libxc: converges everywhere or is refused (long: minutes).
+TEST(FunctionalsLong, EveryLdaAndGgaConvergesOrIsRefused) {
+  sp::SurveyOptions opt;
+  opt.threads = 2;
+  const auto rows = sp::survey_libxc(sp::survey_systems("all"), {}, opt);
+  int converged = 0;
+  for (const auto& r : rows) {
+    if (!r.refusal.empty()) continue;
+    ++converged;
+    for (const auto& o : r.outcomes) EXPECT_TRUE(o.converged) << r.entry.name << " on " << o.system << ": " << o.error;
+  }
+  EXPECT_GT(converged, 200);
+}
+
+// Exchange-only GGAs of the form n^(4/3) F(x) scale like the exact exchange, so the virial
+// theorem gives E = -T_s at self-consistency (M. Levy and J. P. Perdew, PRA 32, 2010 (1985)
+// [memory]; common practice as a check).
+TEST(Blyp, ExchangeOnlyVirialTheorem) {
+  for (const char* x : {"gga_x_b88", "gga_x_optx", "gga_x_pw91"})
+    for (auto [Z, pol] : {std::pair{10, false}, {7, true}, {18, false}}) {
+      const sp::KsProblem P(atom(Z, {x}, pol));
+      const sp::KsSolution S = sp::solve_scf(P, tight());
+      EXPECT_NEAR(S.energy.total, -S.energy.kinetic, 1e-7) << x << " Z = " << Z;
+    }
+}
+
+// Janak's theorem dE/df = eps (J. F. Janak, PRB 18, 7165 (1978) [memory]) for BLYP neon, valence
+// and core, by the one-sided three-point formula at the integer occupation.
+TEST(Blyp, JanakSlopesOfNeon) {
+  const double d = 1e-3;
+  for (const char* level : {"2p", "1s"}) {
+    double E[3], eps = 0.0;
+    for (int j = 0; j < 3; ++j) {
+      sp::SystemSpec s = atom(10, {"gga_x_b88", "gga_c_lyp"}, false);
+      const double f1s = level[0] == '1' ? 2.0 - j * d : 2.0, f2p = level[0] == '2' ? 6.0 - j * d : 6.0;
+      s.atom.configuration = {{1, 0, f1s}, {2, 0, 2.0}, {2, 1, f2p}};
+      s.charge = 10.0 - (f1s + 2.0 + f2p);
+      const sp::KsProblem P(s);
+      const sp::KsSolution S = sp::solve_scf(P, tight());
+      E[j] = S.energy.total;
+      if (j == 0)
+        for (const auto& lv : S.levels)
+          if (lv.label == level) eps = lv.energy;
+    }
+    EXPECT_NEAR((3.0 * E[0] - 4.0 * E[1] + E[2]) / (2.0 * d), eps, 1e-6) << level;
+  }
+}
+
+// The default grid already gives the energies of the tight one for several GGA forms, and
+// BLYP total energies agree with published basis-set-free values.
+TEST(Blyp, DefaultGridReachesTightAndPublishedEnergies) {
+  struct Case {
+    int Z;
+    std::vector<std::string> xc;
+    double published;  // NaN: no published value used
+  };
+  const double none = std::nan("");
+  // BLYP total energies of He, Ne, Ar: -2.9071, -128.9730, -527.5510 hartree [from memory,
+  // numerical (basis-set-free) atomic BLYP calculations]; 2e-3 covers the recall.
+  for (const Case& c : {Case{2, {"gga_x_b88", "gga_c_lyp"}, -2.9071}, Case{10, {"gga_x_b88", "gga_c_lyp"}, -128.9730},
+                        Case{18, {"gga_x_b88", "gga_c_lyp"}, -527.5510}, Case{10, {"gga_x_b88"}, none},
+                        Case{10, {"lda_x", "gga_c_lyp"}, none}, Case{10, {"gga_x_optx", "gga_c_lyp"}, none},
+                        Case{18, {"gga_xc_hcth_407"}, none}}) {
+    const sp::KsProblem D(atom(c.Z, c.xc, false, "default")), T(atom(c.Z, c.xc, false, "tight"));
+    const double ed = sp::solve_scf(D, tight()).energy.total, et = sp::solve_scf(T, tight()).energy.total;
+    EXPECT_NEAR(ed, et, 1e-8) << c.xc[0] << " Z = " << c.Z;
+    if (!std::isnan(c.published)) {
+      EXPECT_NEAR(et, c.published, 2e-3) << "BLYP Z = " << c.Z;
+    }
+  }
+}
