@@ -6,6 +6,8 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <fstream>
+#include <iterator>
 
 #include "stillpoint/atom_config.hpp"
 #include "stillpoint/errors.hpp"
@@ -203,4 +205,14 @@ TEST(Blyp, DefaultGridReachesTightAndPublishedEnergies) {
       EXPECT_NEAR(et, c.published, 2e-3) << "BLYP Z = " << c.Z;
     }
   }
+}
+
+// docs/functionals.md is generated from the installed libxc: it must list every functional
+// (regenerate with tools/dev functionals when libxc changes).
+TEST(Functionals, GeneratedTableListsEveryFunctional) {
+  std::ifstream in(std::string(STILLPOINT_SOURCE_DIR) + "/docs/functionals.md");
+  ASSERT_TRUE(in) << "docs/functionals.md is missing";
+  const std::string text((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
+  for (const auto& e : sp::libxc_catalog())
+    EXPECT_NE(text.find("| " + std::to_string(e.id) + " | `" + e.name + "` |"), std::string::npos) << e.name;
 }

@@ -202,7 +202,7 @@ std::string survey_markdown(const std::vector<SurveyRow>& rows, const std::strin
     std::string status = errors.empty() ? "converges" : "FAILS: " + esc(errors);
     if (r.tail_cut > 0) {
       char b[96];
-      std::snprintf(b, sizeof b, " (tail potential diverges: switched off below n = %.0e)", r.tail_cut);
+      std::snprintf(b, sizeof b, " (switched off below n = %.0e, where its tail is unusable)", r.tail_cut);
       status += b;
     }
     s << status << " | " << esc(results) << " |\n";
