@@ -719,3 +719,38 @@ TEST(FitRegularization, StrongPriorHoldsTheParameter) {
     EXPECT_NE(res.fitted(1), kTrueC[3]);
   }
 }
+
+// BLYP through the fit: manufactured BLYP references (He, Be, Ne energies and the Ne density)
+// with unit weights of the B88 and LYP terms, fitted back from (0.9, 1.15) with both optimizers.
+TEST(FitRecovery, AtomBlypWeights) {
+  std::vector<sp::SystemSpec> sys;
+  for (const char* el : {"He", "Be", "Ne"}) sys.push_back(atom(el, false, {"gga_x_b88", "gga_c_lyp"}));
+  const Reference ref = solve_references(sys);
+  for (auto& s : sys) s.xc_weights = {0.9, 1.15};
+  auto weight = [](int term, const char* name) {
+    sp::ParameterRef r;
+    r.kind = sp::ParameterRef::Kind::XcWeight;
+    r.index = term;
+    r.name = name;
+    return r;
+  };
+  for (auto opt : {sp::FitOptions::Optimizer::Lbfgs, sp::FitOptions::Optimizer::LevenbergMarquardt}) {
+    sp::FitSpec f;
+    f.systems = sys;
+    f.parameters = {weight(0, "w_b88"), weight(1, "w_lyp")};
+    f.info.resize(2);
+    for (auto& i : f.info) i.scale = 0.1;
+    for (int s = 0; s < 3; ++s) f.training.push_back(energy_term(s, ref.energy[s], 1e6));
+    f.training.push_back(density_term(2, ref.density[2], 1e2));
+    f.gradient.scf = scf();
+    f.options.optimizer = opt;
+    f.options.max_iterations = 80;
+    f.options.gradient_tolerance = 1e-14;
+    f.options.step_tolerance = 1e-14;
+    f.options.loss_tolerance = 1e-16;
+    const auto res = sp::run_fit(f);
+    SCOPED_TRACE(res.message);
+    EXPECT_NEAR(res.fitted(0), 1.0, kRecovery);
+    EXPECT_NEAR(res.fitted(1), 1.0, kRecovery);
+  }
+}

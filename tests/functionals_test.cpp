@@ -13,6 +13,7 @@
 #include "stillpoint/errors.hpp"
 #include "stillpoint/functional_survey.hpp"
 #include "stillpoint/grid_presets.hpp"
+#include "stillpoint/inversion.hpp"
 #include "stillpoint/scf.hpp"
 
 namespace sp = stillpoint;
@@ -215,4 +216,35 @@ TEST(Functionals, GeneratedTableListsEveryFunctional) {
   const std::string text((std::istreambuf_iterator<char>(in)), std::istreambuf_iterator<char>());
   for (const auto& e : sp::libxc_catalog())
     EXPECT_NE(text.find("| " + std::to_string(e.id) + " | `" + e.name + "` |"), std::string::npos) << e.name;
+}
+
+// Inversion of a BLYP density gives back the BLYP potential: Ne, Wu-Yang with the Hartree
+// reference potential, the constant fixed by the forward HOMO (which the inversion cannot
+// know otherwise). Compared where the density exceeds 1e-4 bohr^-3.
+TEST(Blyp, InversionRecoversTheBlypPotential) {
+  sp::SystemSpec s = atom(10, {"gga_x_b88", "gga_c_lyp"}, false);
+  const sp::KsProblem P(s);
+  const sp::KsSolution sol = sp::solve_scf(P, tight());
+  double homo = -1e300;
+  for (const auto& l : sol.levels)
+    if (l.occupation > 0) homo = std::max(homo, l.energy);
+  sp::InversionOptions o;
+  o.guide = sp::InversionOptions::Guide::Hartree;
+  o.constant = sp::InversionOptions::Constant::Ionization;
+  o.ionization_energy = -homo;
+  o.density_tolerance = 1e-10;
+  const sp::InversionResult r = sp::invert_density(s, sol.density, o);
+  // Relative to the total potential near the nucleus (-Z/r = -4300 hartree at the first node),
+  // where the density hardly depends on v: 1e-5 hartree plus 1e-7 of |v_ext|.
+  double worst = 0.0, at = 0.0;
+  for (int k = 0; k < P.mesh().num_nodes(); ++k) {
+    if (!(sol.density[0](k) > 1e-4 && P.mesh().density_weight()(k) > 0)) continue;
+    const double excess = std::abs(r.v_xc[0](k) - sol.v_xc[0](k)) - 1e-7 * std::abs(P.external_potential()(k));
+    if (excess > worst) {
+      worst = excess;
+      at = P.mesh().x()(k);
+    }
+  }
+  EXPECT_LT(worst, 1e-5) << "at r = " << at << " bohr";
+  for (std::size_t i = 0; i < sol.levels.size(); ++i) EXPECT_NEAR(r.levels[i].energy, sol.levels[i].energy, 1e-6);
 }
