@@ -1,8 +1,7 @@
 // Exchange-correlation energies of a known density, integrated by the program's own radial
 // quadrature, against closed forms and independently computed values: the hydrogen 1s density
 // n = exp(-2r)/pi, spin-unpolarized (n/2 per spin) and fully polarized (all of it in one spin).
-// Sources: basis-data/reference/check-values.md §4b (Hartree, closed form), §4c (Slater
-// exchange closed form; B88, PBE exchange and PW92, VWN5, PZ81 correlation computed there by a
+// Sources: basis-data/reference/check-values.md §4c (B88, PBE exchange and PW92, VWN5, PZ81 correlation computed there by a
 // separate code, label [computed]; Becke, PRA 38, 3098 (1988), Table I quotes B88 -0.3098).
 #include <gtest/gtest.h>
 
@@ -10,7 +9,6 @@
 #include <numbers>
 
 #include "stillpoint/grid_presets.hpp"
-#include "stillpoint/hartree.hpp"
 #include "stillpoint/mesh.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
 
@@ -45,18 +43,15 @@ TEST(HydrogenDensity, QuadratureNormalizesIt) {
 
 TEST(HydrogenDensity, ExchangeAndCorrelationEnergies) {
   const Hydrogen h;
-  const double pi = std::numbers::pi;
-  // Closed forms (§4c): E_x^LDA = -(81/256) 3^(1/3) pi^(-2/3) unpolarized, times 2^(1/3) polarized.
-  const double ex_lda = -(81.0 / 256.0) * std::cbrt(3.0) * std::pow(pi, -2.0 / 3.0);
+  // (The Slater-exchange closed forms and the Hartree energy of this density are checked in
+  // analytic_checks_test.cpp.)
   struct Case {
     std::vector<std::string> xc;
     bool polarized;
     double value;
     double tol;
   };
-  for (const Case& c : {Case{{"lda_x"}, false, ex_lda, 1e-9},
-                        Case{{"lda_x"}, true, std::cbrt(2.0) * ex_lda, 1e-9},
-                        Case{{"gga_x_b88"}, true, -0.309756, 1e-6},      // [computed]; Becke quotes -0.3098
+  for (const Case& c : {Case{{"gga_x_b88"}, true, -0.309756, 1e-6},      // [computed]; Becke quotes -0.3098
                         Case{{"gga_x_pbe"}, true, -0.3059406, 1e-6},     // [computed]
                         Case{{"gga_x_pbe"}, false, -0.2539957, 1e-6},    // [computed]
                         Case{{"lda_c_pw"}, true, -0.0221840, 1e-6},      // PW92 [computed]
@@ -67,11 +62,4 @@ TEST(HydrogenDensity, ExchangeAndCorrelationEnergies) {
                         Case{{"lda_c_pz"}, false, -0.0416192, 1e-6}}) {
     EXPECT_NEAR(h.xc(c.xc, c.polarized), c.value, c.tol) << c.xc[0] << (c.polarized ? " polarized" : " unpolarized");
   }
-}
-
-// E_H of the 1s density is 5/16 hartree (textbook; §4b), through the program's radial Hartree solver.
-TEST(HydrogenDensity, HartreeEnergyIsFiveSixteenths) {
-  const Hydrogen h;
-  const sp::Hartree H(h.mesh, 1.0);  // the softening is not used for atoms
-  EXPECT_NEAR(H.energy(h.n, H.potential(h.n)), 5.0 / 16.0, 1e-9);
 }

@@ -127,11 +127,6 @@ constexpr double kGridTolerance = 1e-8;
 // A handful of atoms across the table (closed and open shells, 3d and 4d metals, the heaviest
 // atom covered), neutral and cation. About 10 s on one core.
 //
-// Known failure (measured): Cr LSD, empty minority 3d, |d eps| = 1.45e-8. This is not the grid:
-// the minority-spin correlation potential is set to zero wherever n_min < 1e-14 n (masking in
-// LibxcTerm::polarized, src/lib/xc_functional.cpp), a jump of ~2e-3 Ha at r ~ 14.5 bohr whose
-// position moves with the nodes. Adding the first-order effect of the unmasked potential to both
-// grids' eigenvalues makes them agree to 3e-10.
 TEST(NistReference, DefaultGridMatchesTightSubset) {
   std::vector<AtomCase> cases;
   for (const auto& [Z, lsd] : std::vector<std::pair<int, bool>>{
