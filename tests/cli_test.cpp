@@ -306,7 +306,7 @@ omega = 1.0
 [[system]]
 name = "many_states"
 kind = "line"
-extra_states = 100000
+unoccupied_levels = 100000
 [[system.nucleus]]
 charge = 1.0
 )");

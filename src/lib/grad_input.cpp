@@ -269,9 +269,15 @@ std::vector<double> detail::density_on_mesh(const std::string& path, const Syste
   const Mesh mesh = mesh_of(s);
   std::vector<double> out(mesh.num_nodes(), 0.0);
   bool beyond = false;
+  // Tables written by `solve --output` carry the node positions to 13 significant digits: a
+  // node that far outside an end row is that row, not a gap in the reference.
+  const double lo = table.table_x.front(), hi = table.table_x.back();
+  const double slack = 1e-9 * std::max({1.0, std::abs(lo), std::abs(hi)});
   for (int k = 0; k < mesh.num_nodes(); ++k) {
-    const double x = mesh.x()(k);
-    if (x < table.table_x.front() || x > table.table_x.back()) {
+    double x = mesh.x()(k);
+    if (x < lo && x >= lo - slack) x = lo;
+    if (x > hi && x <= hi + slack) x = hi;
+    if (x < lo || x > hi) {
       // No reference there: zero density. Nodes without quadrature weight (r = 0) take the
       // nearest tabulated value, which only matters for plots.
       if (mesh.density_weight()(k) == 0.0) out[k] = table.value(x);
