@@ -334,7 +334,7 @@ TEST(InvertRoundTrip, Lda1dHeliumRecoversLdaVxc) {
   EXPECT_LT(d.max, 1e-6) << "at x = " << d.at;
   EXPECT_LT(std::abs(d.constant), 3e-6);
   // The model comparison the CLI reports is the same functional on the target density.
-  EXPECT_EQ(r.model_functional, "lda_x_1d_soft + lda_c_1d_csc");
+  EXPECT_EQ(r.model_functional, "[\"lda_x_1d_soft\", \"lda_c_1d_csc\"]");
   EXPECT_LT(deviation(P.mesh(), r.v_xc_model[0], sol.v_xc[0], sol.density[0], 1e-4, false).max, 1e-9);
   EXPECT_NEAR(r.homo, sol.levels.front().energy, 3e-6);
 }

@@ -16,6 +16,7 @@
 #include "stillpoint/kinetic.hpp"
 #include "stillpoint/ks_problem.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
+#include "stillpoint/xc_terms.hpp"
 #include "interpolation.hpp"
 
 namespace stillpoint {
@@ -827,7 +828,7 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
       R.v_xc_model = model.potential;
       for (auto& v : R.v_xc_model)
         if (radial) v(0) = v(1);
-      R.model_functional = xc.describe();
+      R.model_functional = xc_list_form(xc);
     }
   }
   R.trusted.assign(N, false);
