@@ -31,7 +31,7 @@ sp::ScfOptions tight_scf() {
 }
 
 // Two electrons on the 1D soft-Coulomb helium (Z = 2, softenings 1) with 1D LDA: the
-// interacting form from the guide v_ext + v_H[n_t].
+// interacting form from the reference potential v_ext + v_H[n_t].
 Case line_two_electrons() {
   Case c;
   c.name = "1D He, 2 e, LDA target (481 nodes)";
@@ -43,7 +43,7 @@ Case line_two_electrons() {
   s.grid = sp::grid_preset(sp::Geometry::Line, "default");
   const sp::KsProblem P(s);
   c.target = sp::solve_scf(P, tight_scf()).density;
-  c.options.guide = sp::InversionOptions::Guide::Hartree;
+  c.options.reference_potential = sp::InversionOptions::ReferencePotential::ExternalAndHartree;
   return c;
 }
 
@@ -60,7 +60,7 @@ Case neon() {
   const sp::KsProblem P(s);
   const sp::KsSolution sol = sp::solve_scf(P, tight_scf());
   c.target = sol.density;
-  c.options.guide = sp::InversionOptions::Guide::Hartree;
+  c.options.reference_potential = sp::InversionOptions::ReferencePotential::ExternalAndHartree;
   c.options.constant = sp::InversionOptions::Constant::Ionization;
   for (const auto& l : sol.levels)
     if (l.occupation > 0) c.options.ionization_energy = -l.energy;  // 2p is the last occupied level

@@ -151,7 +151,7 @@ TEST(AnalyticChecks, HarmonicOscillatorLine) {
       const int N = 5;
       s.charge = -N;  // no nuclei: N electrons
       s.spin_polarized = polarized;
-      s.extra_states = 2;  // states n = 0..4 (up to 4.5 omega), resolved to < 5e-11 by the default line grid
+      s.unoccupied_levels = 2;  // states n = 0..4 (up to 4.5 omega), resolved to < 5e-11 by the default line grid
       s.grid = sp::grid_preset(sp::Geometry::Line, "default");
       const sp::KsProblem P(s);
       const sp::KsSolution S = sp::solve_scf(P, tight_scf());

@@ -285,7 +285,7 @@ TEST(BadInputSystems, EveryErrorHasFileAndLine) {
       kLineHead + "electron_softening = 0\n[[system.nucleus]]\n",
       kLineHead + "[[system.nucleus]]\nsoftening = -1\n",
       kLineHead + "n_up = 1\n[[system.nucleus]]\n",
-      kLineHead + "extra_states = -1\n[[system.nucleus]]\n",
+      kLineHead + "unoccupied_levels = -1\n[[system.nucleus]]\n",
       kLineHead + "interacting = false\nxc = \"lda_x_1d_soft\"\n[[system.nucleus]]\n",
       kLineHead + "electron_softening = 0.7\nxc = \"lda_c_1d_csc\"\n[[system.nucleus]]\nsoftening = 0.7\n",
       kLineHead + "[[system.potential]]\nkind = \"gaussian\"\nwidth = 0\n",

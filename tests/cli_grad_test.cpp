@@ -108,3 +108,47 @@ TEST(CliGrad, BadInputIsReportedWithLineAndKey) {
   EXPECT_EQ(r.rc, 2);
   EXPECT_NE(r.err.find("not a parameter"), std::string::npos) << r.err;
 }
+
+TEST(CliGrad, AcceptsAFitWorkflowAsItIs) {
+  // The workflow a user is about to fit, verified as it is: [fit] and [[dataset]] are expanded
+  // or ignored with a note, not refused as unknown keys.
+  Scratch s;
+  const auto r = s.cli("grad " + std::string(STILLPOINT_SOURCE_DIR) + "/workflows/fit-1d-formula.toml --verify --output out");
+  ASSERT_EQ(r.rc, 0) << r.err;
+  EXPECT_NE(r.out.find("verify: PASS"), std::string::npos) << r.out;
+  EXPECT_NE(r.err.find("is a fit workflow: [fit] and the fit-only keys"), std::string::npos) << r.err;
+}
+
+TEST(CliGrad, SolveDensityOfAnAtomIsAReferenceWithoutWarnings) {
+  // solve writes an atom's density from the first node after r = 0, with its position rounded
+  // to 13 digits: read back on the same grid it covers every weighted node.
+  Scratch s;
+  s.write("he.toml", R"(
+[[system]]
+name = "He"
+kind = "atom"
+element = "He"
+xc = ["lda_x", "lda_c_pw"]
+)");
+  const auto solved = s.cli("solve he.toml --output out");
+  ASSERT_EQ(solved.rc, 0) << solved.err;
+  s.write("g.toml", R"(
+[[system]]
+name = "He"
+kind = "atom"
+element = "He"
+xc = ["lda_x", "lda_c_pw"]
+[[parameter]]
+kind = "xc_weight"
+term = 1
+[[loss]]
+kind = "density"
+reference = "out/He_density.csv"
+)");
+  const auto r = s.cli("grad g.toml --output gout");
+  ASSERT_EQ(r.rc, 0) << r.err;
+  EXPECT_EQ(r.err.find("does not cover"), std::string::npos) << r.err;
+  // The density it reproduces is its own: the loss is zero up to rounding.
+  const auto j = nlohmann::json::parse(s.read("gout/grad.json"));
+  EXPECT_LT(std::abs(j["loss"].get<double>()), 1e-20) << j.dump(1);
+}

@@ -306,7 +306,7 @@ omega = 1.0
 [[system]]
 name = "many_states"
 kind = "line"
-extra_states = 100000
+unoccupied_levels = 100000
 [[system.nucleus]]
 charge = 1.0
 )");
@@ -439,4 +439,21 @@ TEST(CliCheck, UnknownGridPresetExits2) {
   const CliRun r = s.cli("check mg.csv --grid fine -q");
   EXPECT_EQ(r.rc, 2) << r.err;
   EXPECT_TRUE(contains(r.err, "--grid")) << r.err;
+}
+
+// A renamed key is refused with the new name, not guessed at.
+TEST(CliSolve, RenamedKeyNamesItsNewName) {
+  Scratch s;
+  s.write("in.toml", R"([[system]]
+name = "one"
+kind = "line"
+extra_states = 3
+[[system.nucleus]]
+charge = 1.0
+)");
+  const CliRun r = s.cli("solve in.toml --output out");
+  EXPECT_EQ(r.rc, 2) << r.err;
+  EXPECT_TRUE(contains(r.err, "in.toml:4:16: key 'system[0].extra_states': 'extra_states' was renamed: use 'unoccupied_levels'"))
+      << r.err;
+  EXPECT_TRUE(s.absent_or_empty("out"));
 }

@@ -729,3 +729,38 @@ TEST(ExactLongConvergence, GridRefinement) {
   EXPECT_NEAR(rb.levels[0].energy, -2.23825782, 1e-8);
   EXPECT_NEAR(rb.levels[1].energy, -1.81606949, 1e-8);
 }
+
+TEST(ExactTwoElectron, HydrideTripletIsUnboundAndStaysOutOfTheEstimate) {
+  // 1D H⁻ (Z = 1, softenings 1 bohr): the singlet is bound, below E(H) = −0.66977714 Ha
+  // (check-values §1, the one-electron level of the same potential); the lowest triplet lies
+  // above that threshold (from memory: the soft-Coulomb hydride ion has a single bound state), so it
+  // is a box state whose energy follows the walls and must not set the headline estimate.
+  sp::SystemSpec s = line_system("Hm", {{1.0, 0.0, 1.0}}, 16.0);
+  s.charge = -1.0;
+  const auto r = sp::solve_exact(s, opts(1, true, true));
+  ASSERT_EQ(r.levels.size(), 2u);
+  ASSERT_TRUE(r.threshold.has_value());
+  EXPECT_NEAR(*r.threshold, -0.66977714, 1e-7);
+  EXPECT_EQ(r.levels[0].spin, "singlet");
+  EXPECT_TRUE(r.levels[0].bound);
+  EXPECT_LT(r.levels[0].energy, *r.threshold);
+  EXPECT_EQ(r.levels[1].spin, "triplet");
+  EXPECT_FALSE(r.levels[1].bound);
+  EXPECT_GT(r.levels[1].energy, *r.threshold);
+  ASSERT_EQ(r.level_error_estimates.size(), 2u);
+  ASSERT_TRUE(r.grid_error_estimate.has_value());
+  // The headline is the bound level and the HOMO only; the box state moves far more.
+  double headline = r.level_error_estimates[0];
+  for (const auto& gc : r.grid_checks) headline = std::max(headline, std::abs(gc.homo_change));
+  EXPECT_DOUBLE_EQ(*r.grid_error_estimate, headline);
+  EXPECT_GT(r.level_error_estimates[1], 10.0 * *r.grid_error_estimate);
+  // A confining potential has no threshold: every level counts as bound.
+  sp::SystemSpec trap = line_system("trap", {}, 8.0);
+  sp::ExternalTerm h;
+  h.kind = sp::ExternalTerm::Kind::Harmonic;
+  trap.line.potentials.push_back(h);
+  trap.charge = -2.0;
+  const auto t = sp::solve_exact(trap, opts(1, true, false));
+  EXPECT_FALSE(t.threshold.has_value());
+  for (const auto& L : t.levels) EXPECT_TRUE(L.bound);
+}

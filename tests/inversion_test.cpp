@@ -102,14 +102,14 @@ Eigen::VectorXd sqrt2_density(const sp::Mesh& m) {
 // ---------------------------------------------------------------------------------------------
 
 TEST(InvertTwoElectron, SoftCoulombSqrt2PotentialAndEigenvalue) {
-  // [1] + [4e]: v_s = −1/√(x² + 2) exactly, ε = −1/2. Guide: a different well −1/√(x² + 1).
+  // [1] + [4e]: v_s = −1/√(x² + 2) exactly, ε = −1/2. Reference potential: a different well −1/√(x² + 1).
   sp::SystemSpec s = soft_line(1.0, 1.0, -1.0);
   s.line.interacting = false;
   const sp::Mesh m = sp::Mesh::line(s.grid);
   const Eigen::VectorXd n = sqrt2_density(m);
   Opt o;
   o.form = Opt::Form::NonInteracting;
-  o.guide = Opt::Guide::External;
+  o.reference_potential = Opt::ReferencePotential::ExternalOnly;
   o.constant = Opt::Constant::Ionization;
   o.ionization_energy = 0.5;
   o.density_tolerance = 1e-9;
@@ -126,7 +126,7 @@ TEST(InvertTwoElectron, SoftCoulombSqrt2PotentialAndEigenvalue) {
 }
 
 TEST(InvertTwoElectron, SoftCoulombSqrt2AsymptoticConstant) {
-  // Same target; the constant now comes from the tails (v_s → guide at ±L). Both wells have the
+  // Same target; the constant now comes from the tails (v_s → reference potential at ±L). Both wells have the
   // −1/|x| tail, so the HOMO must come out near −1/2 [1]; the residual is set by how far out the
   // data reach (the two wells still differ by ~1/(2|x|³) there).
   sp::SystemSpec s = soft_line(1.0, 1.0, -1.0);
@@ -135,7 +135,7 @@ TEST(InvertTwoElectron, SoftCoulombSqrt2AsymptoticConstant) {
   const Eigen::VectorXd n = sqrt2_density(m);
   Opt o;
   o.form = Opt::Form::NonInteracting;
-  o.guide = Opt::Guide::External;
+  o.reference_potential = Opt::ReferencePotential::ExternalOnly;
   o.density_tolerance = 1e-9;
   const sp::InversionResult r = sp::invert_density(s, {n}, o);
   Eigen::VectorXd exact(m.num_nodes());
@@ -149,7 +149,7 @@ TEST(InvertTwoElectron, SoftCoulombSqrt2AsymptoticConstant) {
 
 TEST(InvertTwoElectron, GeneratedTargetInDeformedWell) {
   // Two non-interacting electrons in v0 = −2/√(x² + 1) − 0.6 exp(−(x − 1.2)²/(2·0.7²)) on our
-  // grid: its v_s is v0 itself. Inverting with only the soft-Coulomb part as guide must find
+  // grid: its v_s is v0 itself. Inverting with only the soft-Coulomb part as reference potential must find
   // the Gaussian, and match the [4e] formula ε + (1/2)(√n)''/√n (discrete form) where n > 1e-6.
   sp::SystemSpec gen = soft_line(2.0, 1.0, 0.0);
   gen.line.interacting = false;
@@ -163,10 +163,10 @@ TEST(InvertTwoElectron, GeneratedTargetInDeformedWell) {
   const sp::KsSolution sol = sp::solve_scf(Pg, tight());
   const double eps = sol.levels.front().energy;
   sp::SystemSpec s = gen;
-  s.line.potentials.clear();  // the guide (and v_ext) without the Gaussian
+  s.line.potentials.clear();  // the reference potential (and v_ext) without the Gaussian
   Opt o;
   o.form = Opt::Form::NonInteracting;
-  o.guide = Opt::Guide::External;
+  o.reference_potential = Opt::ReferencePotential::ExternalOnly;
   o.density_tolerance = 1e-9;
   const sp::InversionResult r = sp::invert_density(s, sol.density, o);
   const sp::Mesh& m = Pg.mesh();
@@ -182,7 +182,7 @@ TEST(InvertTwoElectron, GeneratedTargetInDeformedWell) {
 
 TEST(InvertTwoElectron, HydrogenicDensityInteractingForm) {
   // [4e]: n = 2(Z³/π)e^{−2Zr} (Z = 2, the helium configuration 1s2) has v_s = −Z/r, ε = −Z²/2.
-  // Interacting form with the Fermi–Amaldi guide and I = Z²/2: then v_xc = v_s − v_ext − v_H
+  // Interacting form with the Fermi–Amaldi reference potential and I = Z²/2: then v_xc = v_s − v_ext − v_H
   // = −v_H[n], with v_H = 2[1 − (1 + Zr)e^{−2Zr}]/r [4b].
   const int Z = 2;
   const sp::SystemSpec s = atom(Z, "1s2");
@@ -209,8 +209,8 @@ TEST(InvertTwoElectron, HydrogenicDensityInteractingForm) {
 
 TEST(InvertTwoElectron, ExactHeliumDensityGivesTheExactKsPotential) {
   // The exact singlet density of 1D He (Z = 2, softenings 1 bohr) from `exact`, inverted in the
-  // interacting form with the Fermi–Amaldi guide (exact v_xc ~ −1/|x| far out, so does the
-  // guide's). check-values §2 [computed]: the exact KS HOMO is −I = E(He) − E(He⁺) = −0.75482185;
+  // interacting form with the Fermi–Amaldi reference potential (exact v_xc ~ −1/|x| far out, so does the
+  // reference potential's). check-values §2 [computed]: the exact KS HOMO is −I = E(He) − E(He⁺) = −0.75482185;
   // [4e]: v_s = ε + (1/2)(√n)''/√n, whose discrete form `exact` reports as ks.v_s.
   sp::SystemSpec s = soft_line(2.0, 1.0, 0.0);
   s.grid.half_width = 20.0;
@@ -237,6 +237,42 @@ TEST(InvertTwoElectron, ExactHeliumDensityGivesTheExactKsPotential) {
   const Dev db = deviation(m, b.v_s[0], ex.ks.v_s, ex.density, 1e-6, false);
   EXPECT_LT(db.max, 1e-6) << "at x = " << db.at;
   EXPECT_LT(deviation(m, b.v_xc[0], ex.v_xc, ex.density, 1e-6, false).max, 1e-6);
+}
+
+TEST(InvertTwoElectron, ExactHydrideDensityConvergesWithDefaults) {
+  // The exact singlet density of the 1D hydride ion (Z = 1, two electrons, softenings 1 bohr):
+  // diffuse (I ~ 0.06 Ha), so near the answer each smaller α predicts a decrease at the
+  // rounding level of the objective while the density error is still 3e-8. Every default must
+  // work: the continuation has to take Newton steps at α below 1e-7.
+  // Check value: the one-electron level of −1/√(x² + 1) is −0.66977714 Ha (from memory; the
+  // 1D soft-Coulomb hydrogen atom), the threshold of the ion; −I = E(H⁻) − E(H) is the exact KS HOMO.
+  sp::SystemSpec s = soft_line(1.0, 1.0, -1.0);
+  s.grid.half_width = 25.0;
+  sp::ExactOptions eo;
+  eo.triplet = false;
+  eo.convergence_check = false;
+  const sp::ExactResult ex = sp::solve_exact(s, eo);
+  ASSERT_NEAR(ex.energy_minus_one, -0.66977714, 1e-7);
+  const double I = -ex.ks.homo;
+  ASSERT_GT(I, 0.05);
+  ASSERT_LT(I, 0.07);
+  const sp::InversionResult a = sp::invert_density(s, {ex.density}, Opt{});
+  EXPECT_LE(a.density_l1, Opt{}.density_tolerance);
+  // Every α the continuation visited took at least one step, so the history shows all of them.
+  std::vector<double> alphas;
+  for (const sp::InversionStep& st : a.history)
+    if (alphas.empty() || st.regularization != alphas.back()) alphas.push_back(st.regularization);
+  EXPECT_EQ(alphas.back(), a.regularization);
+  // The asymptotic constant: within the tolerance of the other exact targets (measured 2.3e-4 high).
+  EXPECT_NEAR(a.homo, -I, 5e-4);
+  Opt o;
+  o.constant = Opt::Constant::Ionization;
+  o.ionization_energy = I;
+  const sp::InversionResult b = sp::invert_density(s, {ex.density}, o);
+  EXPECT_LE(b.density_l1, o.density_tolerance);
+  EXPECT_NEAR(b.homo, -I, 1e-12);
+  const Dev db = deviation(ex.mesh, b.v_s[0], ex.ks.v_s, ex.density, 1e-6, false);
+  EXPECT_LT(db.max, 1e-5) << "at x = " << db.at;
 }
 
 TEST(InvertTwoElectron, ShippedExactHeliumWorkflowGivesTheExactVxc) {
@@ -289,7 +325,7 @@ TEST(InvertRoundTrip, Lda1dHeliumRecoversLdaVxc) {
   const sp::KsProblem P(s);
   const sp::KsSolution sol = sp::solve_scf(P, tight());
   Opt o;
-  o.guide = Opt::Guide::Hartree;  // LDA's v_xc vanishes far out
+  o.reference_potential = Opt::ReferencePotential::ExternalAndHartree;  // LDA's v_xc vanishes far out
   const sp::InversionResult r = sp::invert_density(s, sol.density, o);
   // Up to the constant, then the constant: the asymptotic condition reads Δ where the data
   // have faded out, which rounding moves by ~1e-6 (measured 1.1e-6 with multithreaded BLAS,
@@ -298,7 +334,7 @@ TEST(InvertRoundTrip, Lda1dHeliumRecoversLdaVxc) {
   EXPECT_LT(d.max, 1e-6) << "at x = " << d.at;
   EXPECT_LT(std::abs(d.constant), 3e-6);
   // The model comparison the CLI reports is the same functional on the target density.
-  EXPECT_EQ(r.model_functional, "lda_x_1d_soft + lda_c_1d_csc");
+  EXPECT_EQ(r.model_functional, "[\"lda_x_1d_soft\", \"lda_c_1d_csc\"]");
   EXPECT_LT(deviation(P.mesh(), r.v_xc_model[0], sol.v_xc[0], sol.density[0], 1e-4, false).max, 1e-9);
   EXPECT_NEAR(r.homo, sol.levels.front().energy, 3e-6);
 }
@@ -312,7 +348,7 @@ TEST(InvertRoundTrip, NeonLdaRecoversLdaVxc) {
   for (const auto& l : sol.levels)
     if (l.occupation > 0) homo = std::max(homo, l.energy);
   Opt o;
-  o.guide = Opt::Guide::Hartree;
+  o.reference_potential = Opt::ReferencePotential::ExternalAndHartree;
   o.constant = Opt::Constant::Ionization;
   o.ionization_energy = -homo;
   o.density_tolerance = 1e-10;
@@ -339,7 +375,7 @@ TEST(InvertRoundTrip, SpinPolarizedLda1dLithiumRecoversBothSpins) {
   for (const auto& l : sol.levels)
     if (l.occupation > 0) I[l.spin] = std::min(I[l.spin], -l.energy);
   Opt o;
-  o.guide = Opt::Guide::Hartree;
+  o.reference_potential = Opt::ReferencePotential::ExternalAndHartree;
   o.constant = Opt::Constant::Ionization;
   o.spin_ionization_energies = I;
   o.density_tolerance = 1e-9;
@@ -370,7 +406,7 @@ TEST(InvertRoundTrip, DirectMinimizationReachesTheDensityTolerance) {
   const Eigen::VectorXd n = sqrt2_density(m);
   Opt o;
   o.form = Opt::Form::NonInteracting;
-  o.guide = Opt::Guide::External;
+  o.reference_potential = Opt::ReferencePotential::ExternalOnly;
   o.method = Opt::Method::Direct;
   o.constant = Opt::Constant::Ionization;
   o.ionization_energy = 0.5;
@@ -598,10 +634,18 @@ TEST(InvertCli, WritesJsonCsvAndPlots) {
 TEST(InvertCli, ExitCodesForBadInputAndNumericalFailure) {
   clitest::Scratch dir;
   dir.write("target.csv", sqrt2_table());
-  dir.write("bad.toml", std::string(kLineInput) + "guide = \"fermi\"\n");
+  dir.write("bad.toml", std::string(kLineInput) + "reference_potential = \"fermi\"\n");
   const clitest::CliRun bad = dir.cli("invert bad.toml -o out");
   EXPECT_EQ(bad.rc, 2);
-  EXPECT_NE(bad.err.find("bad.toml:13:9: key 'invert.guide'"), std::string::npos) << bad.err;
+  EXPECT_NE(bad.err.find("bad.toml:13:23: key 'invert.reference_potential'"), std::string::npos) << bad.err;
+  // The old key is refused with the new name.
+  dir.write("old.toml", std::string(kLineInput) + "guide = \"hartree\"\n");
+  const clitest::CliRun old = dir.cli("invert old.toml -o out");
+  EXPECT_EQ(old.rc, 2);
+  EXPECT_NE(old.err.find("old.toml:13:9: key 'invert.guide': 'guide' was renamed: use 'reference_potential'"),
+            std::string::npos)
+      << old.err;
+  EXPECT_NE(old.err.find("\"external_and_hartree\" (was \"hartree\")"), std::string::npos) << old.err;
   // Two iterations cannot reach 1e-8: numerical failure, exit 3, no files.
   dir.write("short.toml", std::string(kLineInput) + "max_iterations = 2\n");
   const clitest::CliRun shortrun = dir.cli("invert short.toml -o out");

@@ -168,6 +168,9 @@ struct ExactLevel {
   int index = 0;     ///< 0 = lowest of its kind
   double energy = 0.0;    ///< total energy (electronic + nuclear repulsion), hartree
   double residual = 0.0;  ///< ||H C - E C||, hartree (one electron: of the dense eigenvector)
+  /// false above the one-electron threshold (ExactResult::threshold): a state of the box, not
+  /// of the system; its energy follows the box size.
+  bool bound = true;
   Eigen::VectorXd density;  ///< per mesh node, electrons/bohr
 };
 
@@ -227,7 +230,15 @@ struct ExactResult {
   /// The checks that could be made (a comparison grid may be refused, e.g. a nucleus too near
   /// the smaller box's wall), and the largest change over them (empty when none was made).
   std::vector<ExactGridCheck> grid_checks;
+  /// Largest |change| over the checks of the bound levels and the HOMO (the headline figure).
   std::optional<double> grid_error_estimate;
+  /// Per level (same order as levels): largest |change| over the checks; empty without checks.
+  std::vector<double> level_error_estimates;
+  /// Energy above which a level is unbound: the energy of one electron less in the same
+  /// potential (E(N-1), the ion plus the remaining electron at rest far away). Unset for
+  /// potentials that need not vanish far out (harmonic or tabulated terms): there every state
+  /// is confined.
+  std::optional<double> threshold;
   // Solver statistics (sums over the sectors).
   int iterations = 0;
   int hamiltonian_products = 0;

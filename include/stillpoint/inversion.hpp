@@ -3,7 +3,7 @@
 // system's fixed occupations) has a given target density, and, for interacting systems, the
 // exchange-correlation potential v_xc = v_s − v_ext − v_H[n_t] behind it.
 //
-// Unknowns are the nodal values of Δ = v − v_guide at every mesh node, one vector per spin.
+// Unknowns are the nodal values of Δ = v − v_ref at every mesh node, one vector per spin.
 // Two methods share the discrete Kohn–Sham map and its response (design note §2, §6, §8):
 //
 //   Wu–Yang (default). Maximize the concave functional
@@ -18,10 +18,10 @@
 //     (Newton–Krylov), with a backtracking line search.
 //
 // The constant of each spin's potential (χ0 and K both annihilate constants) is fixed
-// afterwards: Δ → 0 at the outer edge of the grid (v_s follows the guide there), or the highest
+// afterwards: Δ → 0 at the outer edge of the grid (v_s follows the reference potential there), or the highest
 // occupied eigenvalue equals −I for a given ionization energy I. Where the target density is
 // tiny the data no longer determine v: there Δ is the smoothest continuation that the penalty
-// allows, so v follows the guide's long-range behaviour.
+// allows, so v follows the reference potential's long-range behaviour.
 //
 // All quantities in hartree atomic units (hartree, bohr; densities per bohr on the line and
 // per bohr³ for atoms).
@@ -86,18 +86,20 @@ struct InversionOptions {
     NonInteracting,  ///< reconstruct v_s only
   };
   enum class Method { WuYang, Direct };
-  enum class Guide {
-    External,     ///< v_guide = v_ext (non-interacting default)
-    FermiAmaldi,  ///< v_ext + ((N−1)/N) v_H[n_t]: v_xc → −v_H/N ~ −1/r far out (interacting default)
-    Hartree,      ///< v_ext + v_H[n_t]: v_xc → 0 far out (densities from local functionals)
+  /// The fixed part v_ref of v = v_ref + Δ: it gives v its long-range behaviour where the data
+  /// cannot (input key `reference_potential`).
+  enum class ReferencePotential {
+    ExternalOnly,        ///< v_ref = v_ext ("external_only"; non-interacting default)
+    FermiAmaldi,         ///< v_ext + ((N−1)/N) v_H[n_t]: v_xc → −v_H/N ~ −1/r far out (interacting default)
+    ExternalAndHartree,  ///< v_ext + v_H[n_t]: v_xc → 0 far out (densities from local functionals)
   };
   enum class Constant {
-    Asymptotic,  ///< v_s equals the guide at the outer edge of the grid
+    Asymptotic,  ///< v_s equals the reference potential at the outer edge of the grid
     Ionization,  ///< the highest occupied level equals −ionization_energy
   };
   Form form = Form::Interacting;
   Method method = Method::WuYang;
-  Guide guide = Guide::FermiAmaldi;
+  ReferencePotential reference_potential = ReferencePotential::FermiAmaldi;
   Constant constant = Constant::Asymptotic;
   /// I in hartree (Constant::Ionization): the highest occupied level of either spin is −I,
   /// and the other spin (polarized systems) keeps the edge offset the data give it.
@@ -140,7 +142,7 @@ struct InversionResult {
   std::vector<Eigen::VectorXd> v_s;    ///< per spin, hartree, every node (radial r = 0 node: copy of node 1)
   std::vector<Eigen::VectorXd> v_xc;   ///< per spin (interacting form; empty otherwise)
   std::vector<Eigen::VectorXd> v_hxc;  ///< per spin, v_s − v_ext (interacting form; empty otherwise)
-  std::vector<Eigen::VectorXd> v_guide;
+  std::vector<Eigen::VectorXd> v_reference;
   Eigen::VectorXd v_ext, v_h;  ///< v_h of the target density (zero if not used)
   std::vector<Eigen::VectorXd> density, target;
   /// The model functional's v_xc on the target density (when the system names xc).

@@ -68,7 +68,7 @@ struct SystemSpec {
   /// Name of the preset the grid came from ("custom" if set explicitly), for reports.
   std::string grid_name = "default";
   /// Line only: unoccupied states computed and reported above the highest occupied one.
-  int extra_states = 2;
+  int unoccupied_levels = 2;
 
   /// Total electron count implied by nuclei and charge.
   double electron_count() const;

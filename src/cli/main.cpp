@@ -173,7 +173,7 @@ int main(int argc, char** argv) {
 
   GradCommandOptions gopt;
   auto* grad = app.add_subcommand("grad", "Loss and exact gradient by implicit differentiation of the converged SCF");
-  grad->add_option("input", gopt.input, "input file (TOML) with [[system]], [[parameter]] and [[loss]], see docs/input.md")
+  grad->add_option("input", gopt.input, "input file (TOML) with [[system]], [[parameter]] and [[loss]], see docs/grad.md")
       ->required()
       ->check(CLI::ExistingFile);
   grad->add_option("--mode", gopt.mode, "adjoint (one solve per system) or tangent (one solve per parameter)")

@@ -245,7 +245,7 @@ void check_system_scope(const std::string& file, const toml::table& t, const Sys
   if (s.geometry != Geometry::Line)
     throw InputError(key_location(file, t, path, "kind"),
                      "exact solutions are for line systems (kind = \"line\") only; system '" + s.name + "' is an atom");
-  for (const char* k : {"n_up", "n_down", "occupations", "extra_states"})
+  for (const char* k : {"n_up", "n_down", "occupations", "unoccupied_levels"})
     if (t.contains(k))
       throw InputError(key_location(file, t, path, k),
                        std::string("'") + k + "' is a Kohn–Sham setting and has no meaning for an exact solution; the exact "

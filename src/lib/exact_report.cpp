@@ -89,13 +89,19 @@ nlohmann::json result_json(const ExactResult& r, const std::string& density_file
   j["homo"] = r.ks.homo;
   j["ionization_energy"] = -r.ks.homo;
   json levels = json::array();
-  for (const auto& L : r.levels)
-    levels.push_back({{"spin", L.spin},
-                      {"index", L.index},
-                      {"energy", L.energy},
-                      {"excitation", L.energy - r.levels.front().energy},
-                      {"residual", L.residual}});
+  for (std::size_t i = 0; i < r.levels.size(); ++i) {
+    const ExactLevel& L = r.levels[i];
+    json lv = {{"spin", L.spin},
+               {"index", L.index},
+               {"energy", L.energy},
+               {"excitation", L.energy - r.levels.front().energy},
+               {"residual", L.residual},
+               {"bound", L.bound}};
+    lv["grid_error_estimate"] = i < r.level_error_estimates.size() ? json(r.level_error_estimates[i]) : json(nullptr);
+    levels.push_back(lv);
+  }
   j["levels"] = levels;
+  j["threshold"] = r.threshold ? json(*r.threshold) : json(nullptr);
   j["kohn_sham_potential"] = {{"trust_density", r.ks.trust_density},
                               {"trusted_nodes", r.ks.trusted_nodes},
                               {"trusted_from", min_trusted_x(r, true)},
@@ -198,13 +204,25 @@ std::string format_exact_result(const ExactResult& r) {
   s << r.spec.name << ": " << r.electrons << " electron" << (r.electrons == 2 ? "s" : "")
     << " on the line (energies in hartree, lengths in bohr)\n";
   s << "  grid: " << r.mesh.describe() << " (" << r.spec.grid_name << ")\n";
-  s << "  state          energy (Ha)          excitation (Ha)   residual (Ha)\n";
-  for (const auto& L : r.levels) {
-    char buf[160];
-    std::snprintf(buf, sizeof buf, "  %-8s %2d   % .10f   % .10f     %.1e\n", L.spin.c_str(), L.index, L.energy,
+  const bool estimates = r.level_error_estimates.size() == r.levels.size();
+  s << "  state          energy (Ha)          excitation (Ha)   residual (Ha)" << (estimates ? "   grid est. (Ha)" : "")
+    << "\n";
+  bool any_unbound = false;
+  for (std::size_t i = 0; i < r.levels.size(); ++i) {
+    const ExactLevel& L = r.levels[i];
+    char buf[200];
+    std::snprintf(buf, sizeof buf, "  %-8s %2d   % .10f   % .10f     %.1e", L.spin.c_str(), L.index, L.energy,
                   L.energy - r.levels.front().energy, L.residual);
     s << buf;
+    if (estimates) s << "         " << fmt("%.1e", r.level_error_estimates[i]);
+    if (!L.bound) s << "   unbound";
+    any_unbound = any_unbound || !L.bound;
+    s << "\n";
   }
+  if (any_unbound)
+    s << "  unbound: above the threshold E(" << r.electrons - 1 << " electron" << (r.electrons - 1 == 1 ? "" : "s")
+      << ", same potential) = " << fmt("%.10f", *r.threshold)
+      << " Ha; such a level is a state of the box (its energy follows half_width), not of the system\n";
   const ExactEnergyParts& E = r.energy;
   char buf[400];
   if (r.electrons == 2)
@@ -234,7 +252,7 @@ std::string format_exact_result(const ExactResult& r) {
   }
   if (r.grid_error_estimate)
     s << "  discretization error estimate " << fmt("%.2e", *r.grid_error_estimate)
-      << " Ha (upper estimate: the largest change against the coarser grids)\n";
+      << " Ha (upper estimate: the largest change against the coarser grids, of the bound levels and the HOMO)\n";
   else
     s << "  grid check: not done (off, or the comparison grids are refused)\n";
   if (r.electrons == 2)

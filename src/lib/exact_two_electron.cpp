@@ -436,6 +436,16 @@ ExactResult solve_exact(const SystemSpec& spec_in, const ExactOptions& o) {
     r.energy_minus_one = H.one_electron_energies()(0) + r.nuclear_repulsion;
     if (o.pair_density) r.ground_coefficients = C;
   }
+  // Above E(N-1) one electron can leave: with walls at ±L such a level is a box state whose
+  // energy falls towards the threshold as L grows. Harmonic and tabulated potentials need not
+  // vanish far out, so there no threshold is drawn.
+  const bool confined = std::any_of(spec.line.potentials.begin(), spec.line.potentials.end(), [](const ExternalTerm& t) {
+    return t.kind != ExternalTerm::Kind::Gaussian;
+  });
+  if (!confined) {
+    r.threshold = r.energy_minus_one;
+    for (ExactLevel& L : r.levels) L.bound = L.energy < *r.threshold;
+  }
   const double homo = E.total - r.energy_minus_one;
   r.ks = exact_ks_potential(mesh, H.kinetic(), r.density, homo, electrons, o.trust_density);
   const Eigen::VectorXd& c = r.ks.orbital;
@@ -468,10 +478,13 @@ ExactResult solve_exact(const SystemSpec& spec_in, const ExactOptions& o) {
         ExactOptions oc = o;
         oc.pair_density = false;
         const LevelSolve lc = solve_levels(Pc, Hc, electrons, oc, false);
+        r.level_error_estimates.resize(r.levels.size(), 0.0);
         for (std::size_t i = 0; i < r.levels.size(); ++i) {
           const double d = r.levels[i].energy - lc.levels[i].energy;
           gc.level_changes.push_back(d);
-          gc.max_change = std::max(gc.max_change, std::abs(d));
+          r.level_error_estimates[i] = std::max(r.level_error_estimates[i], std::abs(d));
+          // Unbound levels measure the box, not the discretization of the system.
+          if (r.levels[i].bound) gc.max_change = std::max(gc.max_change, std::abs(d));
         }
         const double minus_one_c = electrons == 2 ? Hc.one_electron_energies()(0) + Pc.nuclear_repulsion() : Pc.nuclear_repulsion();
         gc.homo_change = homo - (lc.levels.front().energy - minus_one_c);

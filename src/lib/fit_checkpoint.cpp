@@ -178,7 +178,7 @@ void hash_system(Hasher& h, const SystemSpec& s) {
   h.d(s.grid.first_element);
   h.i(s.grid.first_element_over_z);
   h.d(s.grid.r_max);
-  h.i(s.extra_states);
+  h.i(s.unoccupied_levels);
   h.i(s.atom.Z);
   for (const auto& sh : s.atom.configuration) {
     h.i(sh.n);

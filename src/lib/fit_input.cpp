@@ -69,11 +69,7 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
   // [[dataset]] folders become [[system]] and [[loss]] tables first (same checks, same names).
   detail::expand_datasets(root, file);
   wf.file = file;
-  detail::GradReadExtras extras;
-  extras.top_keys = {"fit", "dataset"};
-  extras.parameter_keys = {"initial", "fixed", "prior", "prior_weight", "smoothness", "scale", "published", "published_source"};
-  extras.loss_keys = {"set", "scale"};
-  detail::GradParsed parsed = detail::parse_grad_root(root, file, extras);
+  detail::GradParsed parsed = detail::parse_grad_root(root, file, detail::fit_workflow_extras());
   GradInput& g = parsed.input;
   wf.warnings = g.warnings;
 
@@ -135,37 +131,9 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
   }
 
   // Parameters: start values first (they move the systems), then bounds, then the rest.
-  Eigen::VectorXd theta = parameter_values(systems, g.parameters);
-  std::map<std::string, std::vector<double>> start_tables;
-  for (std::size_t i = 0; i < g.parameters.size(); ++i) {
-    const ParameterRef& p = g.parameters[i];
-    const int b = parsed.block_of[i];
-    const toml::table& t = *parsed.parameter_blocks[b];
-    const std::string path = "parameter[" + std::to_string(b) + "]";
-    std::vector<std::string> fields;
-    for (std::size_t j = 0; j < g.parameters.size(); ++j)
-      if (parsed.block_of[j] == b) fields.push_back(g.parameters[j].field);
-    for (const char* k : {"initial", "prior", "published"}) check_field_table(file, t, path, k, fields);
-    const toml::node* in = t.get("initial");
-    if (in && in->is_string()) {
-      if (p.kind != ParameterRef::Kind::GridPotential)
-        throw InputError(location(file, *in, path + ".initial"), "a file as start value is for grid_potential only");
-      std::filesystem::path f(in->as_string()->get());
-      if (f.is_relative()) f = std::filesystem::path(file).parent_path() / f;
-      if (!std::filesystem::exists(f)) throw InputError(location(file, *in, path + ".initial"), "file not found: " + f.string());
-      const SystemSpec& s = systems[p.system < 0 ? 0 : p.system];
-      auto& values = start_tables[f.string() + "|" + s.name];
-      if (values.empty()) {
-        std::vector<std::string> w;
-        values = detail::density_on_mesh(f.string(), s, w);  // the same two-column table reader; hartree
-      }
-      theta(i) = values[p.index];
-    } else if (auto v = field_value(file, t, path, "initial", p)) {
-      theta(i) = *v;
-    }
-  }
-  g.base.systems = apply_parameters(g.base.systems, g.parameters, theta);
+  detail::apply_fit_start_values(parsed, file);
   detail::check_parameter_bounds(parsed, file);
+  const Eigen::VectorXd theta = parameter_values(systems, g.parameters);
 
   FitSpec& spec = wf.spec;
   std::vector<int> free_index;
@@ -299,6 +267,53 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
 }
 
 }  // namespace
+
+namespace detail {
+
+GradReadExtras fit_workflow_extras() {
+  GradReadExtras extras;
+  extras.top_keys = {"fit", "dataset"};
+  extras.parameter_keys = {"initial", "fixed", "prior", "prior_weight", "smoothness", "scale", "published", "published_source"};
+  extras.loss_keys = {"set", "scale"};
+  return extras;
+}
+
+void apply_fit_start_values(GradParsed& parsed, const std::string& file) {
+  GradInput& g = parsed.input;
+  const auto& systems = g.base.systems;
+  Eigen::VectorXd theta = parameter_values(systems, g.parameters);
+  std::map<std::string, std::vector<double>> start_tables;
+  for (std::size_t i = 0; i < g.parameters.size(); ++i) {
+    const ParameterRef& p = g.parameters[i];
+    const int b = parsed.block_of[i];
+    const toml::table& t = *parsed.parameter_blocks[b];
+    const std::string path = "parameter[" + std::to_string(b) + "]";
+    std::vector<std::string> fields;
+    for (std::size_t j = 0; j < g.parameters.size(); ++j)
+      if (parsed.block_of[j] == b) fields.push_back(g.parameters[j].field);
+    for (const char* k : {"initial", "prior", "published"}) check_field_table(file, t, path, k, fields);
+    const toml::node* in = t.get("initial");
+    if (in && in->is_string()) {
+      if (p.kind != ParameterRef::Kind::GridPotential)
+        throw InputError(location(file, *in, path + ".initial"), "a file as start value is for grid_potential only");
+      std::filesystem::path f(in->as_string()->get());
+      if (f.is_relative()) f = std::filesystem::path(file).parent_path() / f;
+      if (!std::filesystem::exists(f)) throw InputError(location(file, *in, path + ".initial"), "file not found: " + f.string());
+      const SystemSpec& s = systems[p.system < 0 ? 0 : p.system];
+      auto& values = start_tables[f.string() + "|" + s.name];
+      if (values.empty()) {
+        std::vector<std::string> w;
+        values = detail::density_on_mesh(f.string(), s, w);  // the same two-column table reader; hartree
+      }
+      theta(i) = values[p.index];
+    } else if (auto v = field_value(file, t, path, "initial", p)) {
+      theta(i) = *v;
+    }
+  }
+  g.base.systems = apply_parameters(g.base.systems, g.parameters, theta);
+}
+
+}  // namespace detail
 
 FitWorkflow parse_fit_workflow(const std::string& text, const std::string& name) {
   toml::table root = detail::parse_toml(text, name);

@@ -368,7 +368,7 @@ std::string fitted_model_toml(const FitWorkflow& wf, const Eigen::VectorXd& thet
         else
           o << "occupations = " << list(s.occupations[0]) << "\n";
       }
-      o << "extra_states = " << s.extra_states << "\n";
+      o << "unoccupied_levels = " << s.unoccupied_levels << "\n";
       for (const Nucleus1d& n : s.line.nuclei)
         o << "[[system.nucleus]]\ncharge = " << g17(n.charge) << "\nposition = " << g17(n.position)
           << "\nsoftening = " << g17(n.softening) << "\n";

@@ -6,6 +6,7 @@
 #include <filesystem>
 #include <fstream>
 
+#include "fit_dataset.hpp"
 #include "grad_input_detail.hpp"
 #include "input_detail.hpp"
 #include "interpolation.hpp"
@@ -269,9 +270,15 @@ std::vector<double> detail::density_on_mesh(const std::string& path, const Syste
   const Mesh mesh = mesh_of(s);
   std::vector<double> out(mesh.num_nodes(), 0.0);
   bool beyond = false;
+  // Tables written by `solve --output` carry the node positions to 13 significant digits: a
+  // node that far outside an end row is that row, not a gap in the reference.
+  const double lo = table.table_x.front(), hi = table.table_x.back();
+  const double slack = 1e-9 * std::max({1.0, std::abs(lo), std::abs(hi)});
   for (int k = 0; k < mesh.num_nodes(); ++k) {
-    const double x = mesh.x()(k);
-    if (x < table.table_x.front() || x > table.table_x.back()) {
+    double x = mesh.x()(k);
+    if (x < lo && x >= lo - slack) x = lo;
+    if (x > hi && x <= hi + slack) x = hi;
+    if (x < lo || x > hi) {
       // No reference there: zero density. Nodes without quadrature weight (r = 0) take the
       // nearest tabulated value, which only matters for plots.
       if (mesh.density_weight()(k) == 0.0) out[k] = table.value(x);
@@ -490,8 +497,21 @@ void check_parameter_bounds(const GradParsed& parsed, const std::string& file) {
 
 GradInput parse_grad_input(const std::string& text, const std::string& name) {
   // Unlike the other readers, grad has never prefixed syntax errors with "TOML syntax error: ".
-  const toml::table root = detail::parse_toml(text, name, "");
-  detail::GradParsed parsed = detail::parse_grad_root(root, name, {});
+  toml::table root = detail::parse_toml(text, name, "");
+  // A fit workflow is accepted as it is, so that `grad --verify` checks the very setup a fit
+  // will use: its datasets become systems and losses, its parameters start where the fit
+  // starts, and what only the optimizer needs ([fit], priors, sets, scales) is ignored.
+  const bool fit_workflow = root.contains("fit") || root.contains("dataset");
+  if (fit_workflow) detail::expand_datasets(root, name);
+  detail::GradParsed parsed = detail::parse_grad_root(root, name, fit_workflow ? detail::fit_workflow_extras() : detail::GradReadExtras{});
+  if (fit_workflow) {
+    detail::apply_fit_start_values(parsed, name);
+    parsed.input.warnings.insert(parsed.input.warnings.begin(),
+                                 name + " is a fit workflow: [fit] and the fit-only keys of [[parameter]] and [[loss]] "
+                                        "(fixed, prior, prior_weight, smoothness, scale, published, set) are ignored; "
+                                        "the gradient is taken at the fit's start values, every loss term with its "
+                                        "own weight (no fit normalization), training and validation alike");
+  }
   detail::check_parameter_bounds(parsed, name);
   return std::move(parsed.input);
 }

@@ -28,6 +28,14 @@ struct GradParsed {
 /// pointers refer into `root`, which must outlive the result. Bounds are not checked here.
 GradParsed parse_grad_root(const toml::table& root, const std::string& file, const GradReadExtras& extras);
 
+/// The keys a fit workflow adds to the grad file format (docs/fit.md), read by the fit reader.
+GradReadExtras fit_workflow_extras();
+
+/// Applies the fit workflow's start values (`initial` of each [[parameter]], a number, a
+/// table per field, or a file for grid_potential) to the systems of `parsed`. Defined in
+/// fit_input.cpp; `grad` uses it to differentiate the point a fit would start from.
+void apply_fit_start_values(GradParsed& parsed, const std::string& file);
+
 /// InputError when a parameter's current value lies outside [lower, upper] or lower >= upper,
 /// placed at the block's lower/upper key.
 void check_parameter_bounds(const GradParsed& parsed, const std::string& file);

@@ -312,7 +312,7 @@ void check_name(const Ctx& c, const toml::table& t, const std::string& path, con
 const std::vector<std::string> kCommonKeys{"name", "kind", "xc", "xc_weights", "xc_parameters", "charge", "spin", "grid"};
 const std::vector<std::string> kAtomKeys{"element", "Z", "configuration"};
 const std::vector<std::string> kLineKeys{"nucleus", "potential", "electron_softening", "interacting",
-                                         "nucleus_softening", "n_up", "n_down", "occupations", "extra_states"};
+                                         "nucleus_softening", "n_up", "n_down", "occupations", "unoccupied_levels"};
 
 void read_atom(const Ctx& c, const toml::table& t, const std::string& path, SystemSpec& s, const GridInput& grid) {
   const toml::node* el = t.get("element");
@@ -488,8 +488,8 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
   if (s.n_up && s.n_down && std::abs(*s.n_up + *s.n_down - ne) > 1e-9)
     throw InputError(loc_in(c, t, path, "n_down"), "n_up + n_down = " + num(*s.n_up + *s.n_down) +
                                                        " but the system has " + num(ne) + " electrons");
-  s.extra_states = get_int(c, t, path, "extra_states", s.extra_states);
-  if (s.extra_states < 0) throw InputError(loc_in(c, t, path, "extra_states"), "must be >= 0");
+  s.unoccupied_levels = get_int(c, t, path, "unoccupied_levels", s.unoccupied_levels);
+  if (s.unoccupied_levels < 0) throw InputError(loc_in(c, t, path, "unoccupied_levels"), "must be >= 0");
   if (const toml::node* on = t.get("occupations")) {
     const std::string op = path + ".occupations";
     if (s.n_up || s.n_down) throw InputError(loc(c, *on, op), "give either occupations or n_up / n_down, not both");
@@ -572,6 +572,7 @@ SystemSpec read_system(const Ctx& c, const toml::table& t, int index, double thr
   const std::string path = "system[" + std::to_string(index) + "]";
   SystemSpec s;
   const std::string kind = detail::string_key(c.file, t, path, "kind", "");
+  detail::refuse_renamed_key(c.file, t, path, "extra_states", "unoccupied_levels");
   if (kind == "atom") {
     s.geometry = Geometry::Radial;
     check_keys(c, t, path, detail::concat(kCommonKeys, kAtomKeys), kLineKeys,

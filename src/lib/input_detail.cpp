@@ -65,6 +65,15 @@ void check_keys(const std::string& file, const toml::table& t, const std::string
   }
 }
 
+void refuse_renamed_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& old_key,
+                        const std::string& new_key, const std::string& values) {
+  const toml::node* n = t.get(old_key);
+  if (!n) return;
+  std::string message = "'" + old_key + "' was renamed: use '" + new_key + "'";
+  if (!values.empty()) message.append(" (").append(values).append(")");
+  throw InputError(location(file, *n, join(path, old_key)), message);
+}
+
 double finite_number(const std::string& file, const toml::node& n, const std::string& key) {
   // value<double>() is also empty for integers beyond 2^53, which a double cannot hold exactly.
   const auto v = n.value<double>();

@@ -37,6 +37,12 @@ std::vector<std::string> concat(std::vector<std::string> a, const std::vector<st
 void check_keys(const std::string& file, const toml::table& t, const std::string& path, const std::vector<std::string>& allowed,
                 bool list_valid);
 
+/// InputError at `path.old_key` when `t` has it: the key was renamed to `new_key`. `values`
+/// (may be empty) says how old values map to new ones. Call before check_keys so that the
+/// message names the new key rather than guessing a spelling.
+void refuse_renamed_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& old_key,
+                        const std::string& new_key, const std::string& values = "");
+
 /// A number (integer or float) that is finite; otherwise "expected a finite number" at `key`.
 double finite_number(const std::string& file, const toml::node& n, const std::string& key);
 

@@ -16,6 +16,7 @@
 #include "stillpoint/kinetic.hpp"
 #include "stillpoint/ks_problem.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
+#include "stillpoint/xc_terms.hpp"
 #include "interpolation.hpp"
 
 namespace stillpoint {
@@ -515,7 +516,7 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
                                const InversionOptions& opt, const std::vector<bool>& covered) {
   const auto t0 = std::chrono::steady_clock::now();
   using Form = InversionOptions::Form;
-  using Guide = InversionOptions::Guide;
+  using ReferencePotential = InversionOptions::ReferencePotential;
   const Engine E(system);
   const KsProblem& P = E.problem();
   const Mesh& m = P.mesh();
@@ -564,16 +565,16 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
   R.target = nt;
   R.v_ext = P.external_potential();
   R.v_h = Eigen::VectorXd::Zero(N);
-  const bool need_h = opt.form == Form::Interacting || opt.guide != Guide::External;
+  const bool need_h = opt.form == Form::Interacting || opt.reference_potential != ReferencePotential::ExternalOnly;
   if (need_h) {
     const Hartree H(m, radial ? 0.0 : system.line.electron_softening);
     R.v_h = H.potential(nt_tot);
   }
   Eigen::VectorXd vg = R.v_ext;
-  if (opt.guide == Guide::FermiAmaldi) vg += ((Ntot - 1.0) / Ntot) * R.v_h;
-  if (opt.guide == Guide::Hartree) vg += R.v_h;
+  if (opt.reference_potential == ReferencePotential::FermiAmaldi) vg += ((Ntot - 1.0) / Ntot) * R.v_h;
+  if (opt.reference_potential == ReferencePotential::ExternalAndHartree) vg += R.v_h;
   if (radial) vg(0) = vg(1);  // r = 0 carries no weight; keep the vector finite and smooth-ish
-  R.v_guide.assign(ns, vg);
+  R.v_reference.assign(ns, vg);
 
   const Eigen::MatrixXd K = stiffness(m);
   std::vector<Eigen::VectorXd> delta(ns, Eigen::VectorXd::Zero(N));
@@ -678,11 +679,14 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
       }
       // Converged at this α when the optimality residual is far below the density accuracy
       // asked for (Wu–Yang: the gradient is W (n − n_t) − αKΔ, in electrons), or the predicted
-      // decrease is at the rounding level of the objective.
+      // decrease is at the rounding level of the objective. The decrease is quadratic in the
+      // gradient: for a diffuse density a density error of 1e-8 predicts a decrease at rounding
+      // level while the step still moves the density by the whole error. So every new α gets
+      // at least one Newton step (taken as a local step below) before the decrement may stop it.
       const double rounding = 1e-15 * (1.0 + std::abs(J));
       double gnorm = 0.0;
       for (int s = 0; s < ns; ++s) gnorm += grad[s].lpNorm<1>();
-      if (decrement < rounding || (wy && gnorm < 1e-3 * opt.density_tolerance)) {
+      if ((inner > 0 && decrement < rounding) || (wy && gnorm < 1e-3 * opt.density_tolerance)) {
         --iteration;
         break;
       }
@@ -824,7 +828,7 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
       R.v_xc_model = model.potential;
       for (auto& v : R.v_xc_model)
         if (radial) v(0) = v(1);
-      R.model_functional = xc.describe();
+      R.model_functional = xc_list_form(xc);
     }
   }
   R.trusted.assign(N, false);

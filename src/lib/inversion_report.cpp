@@ -19,7 +19,7 @@ namespace fs = std::filesystem;
 using detail::location;
 
 const std::vector<std::string> kInvertKeys{"target",          "column",           "form",
-                                           "method",          "guide",            "constant",
+                                           "method",          "reference_potential", "constant",
                                            "ionization_energy", "regularization", "regularization_start",
                                            "density_tolerance", "trust_threshold", "max_iterations"};
 
@@ -65,6 +65,8 @@ InvertInput parse_root(const toml::table& root, const std::string& file) {
   if (!node) throw InputError(SourceLocation{file, 0, 0, "invert"}, "no [invert] table given: nothing to invert");
   const toml::table* t = node->as_table();
   if (!t) throw InputError(location(file, *node, "invert"), "expected an [invert] table");
+  detail::refuse_renamed_key(file, *t, "invert", "guide", "reference_potential",
+                             "\"fermi_amaldi\", \"external_and_hartree\" (was \"hartree\"), \"external_only\" (was \"external\")");
   detail::check_keys(file, *t, "invert", kInvertKeys, /*list_valid=*/false);
   const toml::node* tn = t->get("target");
   if (!tn) throw InputError(location(file, *t, "invert.target"), "missing target = \"FILE.csv\" (the density to invert)");
@@ -94,11 +96,14 @@ InvertInput parse_root(const toml::table& root, const std::string& file) {
                      "system '" + s.name + "': xc has no meaning in the non-interacting form (there is no v_xc); remove it");
   o.method = choice(file, *t, "method", "wu_yang", {"wu_yang", "direct"}) == "wu_yang" ? InversionOptions::Method::WuYang
                                                                                        : InversionOptions::Method::Direct;
-  const std::string guide = choice(file, *t, "guide", o.form == InversionOptions::Form::Interacting ? "fermi_amaldi" : "external",
-                                   {"fermi_amaldi", "hartree", "external"});
-  o.guide = guide == "fermi_amaldi" ? InversionOptions::Guide::FermiAmaldi
-            : guide == "hartree"    ? InversionOptions::Guide::Hartree
-                                    : InversionOptions::Guide::External;
+  // The fixed part of v = v_ref + Δ, named by what it contains.
+  const std::string ref =
+      choice(file, *t, "reference_potential",
+             o.form == InversionOptions::Form::Interacting ? "fermi_amaldi" : "external_only",
+             {"fermi_amaldi", "external_and_hartree", "external_only"});
+  o.reference_potential = ref == "fermi_amaldi"           ? InversionOptions::ReferencePotential::FermiAmaldi
+                          : ref == "external_and_hartree" ? InversionOptions::ReferencePotential::ExternalAndHartree
+                                                          : InversionOptions::ReferencePotential::ExternalOnly;
   const bool has_ip = t->get("ionization_energy") != nullptr;
   const std::string constant = choice(file, *t, "constant", has_ip ? "ionization" : "asymptotic", {"asymptotic", "ionization"});
   if (constant == "ionization") {
@@ -160,11 +165,11 @@ const char* form_name(const InversionOptions& o) {
 const char* method_name(const InversionOptions& o) {
   return o.method == InversionOptions::Method::WuYang ? "wu_yang" : "direct";
 }
-const char* guide_name(const InversionOptions& o) {
-  switch (o.guide) {
-    case InversionOptions::Guide::FermiAmaldi: return "fermi_amaldi";
-    case InversionOptions::Guide::Hartree: return "hartree";
-    default: return "external";
+const char* reference_potential_name(const InversionOptions& o) {
+  switch (o.reference_potential) {
+    case InversionOptions::ReferencePotential::FermiAmaldi: return "fermi_amaldi";
+    case InversionOptions::ReferencePotential::ExternalAndHartree: return "external_and_hartree";
+    default: return "external_only";
   }
 }
 
@@ -238,8 +243,8 @@ std::string format_inversion(const InvertInput& in, const TargetDensity& t, cons
       << ")  [hartree, bohr]\n";
   out << "  target      " << t.source << (t.exact_nodes ? " (on the grid nodes)" : " (interpolated)") << "\n";
   out << "  grid        " << m.describe() << "\n";
-  out << "  guide       " << guide_name(o) << "; constant by "
-      << (o.constant == InversionOptions::Constant::Asymptotic ? "the asymptotic condition (v_s -> guide at the grid edge)"
+  out << "  reference   potential " << reference_potential_name(o) << "; constant by "
+      << (o.constant == InversionOptions::Constant::Asymptotic ? "the asymptotic condition (v_s -> reference potential at the grid edge)"
                 : o.spin_ionization_energies.size() == 2
                     ? "the ionization energies per spin I_up = " + g6(o.spin_ionization_energies[0]) +
                           " Ha, I_down = " + g6(o.spin_ionization_energies[1]) + " Ha"
@@ -267,7 +272,7 @@ std::string format_inversion(const InvertInput& in, const TargetDensity& t, cons
   std::snprintf(buf, sizeof buf, "  HOMO        %.9f Ha\n", r.homo);
   out << buf;
   if (!radial && r.tail_mismatch > 1e-6) {
-    std::snprintf(buf, sizeof buf, "  tails       v_s - guide differs by %.2e Ha between the two edges\n", r.tail_mismatch);
+    std::snprintf(buf, sizeof buf, "  tails       v_s - reference potential differs by %.2e Ha between the two edges\n", r.tail_mismatch);
     out << buf;
   }
   const ModelDiff d = model_difference(m, r);
@@ -313,7 +318,7 @@ std::string inversion_json(const InvertInput& in, const TargetDensity& t, const 
   if (!t.position_column.empty()) j["target"]["columns"] = t.position_column + "," + t.density_columns;
   j["form"] = form_name(o);
   j["method"] = method_name(o);
-  j["guide"] = guide_name(o);
+  j["reference_potential"] = reference_potential_name(o);
   json c = {{"kind", o.constant == InversionOptions::Constant::Asymptotic ? "asymptotic" : "ionization"},
             {"shift_per_spin", r.shift}};
   if (o.constant == InversionOptions::Constant::Ionization) {
@@ -326,7 +331,7 @@ std::string inversion_json(const InvertInput& in, const TargetDensity& t, const 
   j["constant"] = c;
   j["regularization"] = {{"alpha", r.regularization},
                          {"mode", o.regularization == 0.0 ? "automatic" : "fixed"},
-                         {"penalty", "(alpha/2) * integral |grad(v - v_guide)|^2, per spin"}};
+                         {"penalty", "(alpha/2) * integral |grad(v - v_reference)|^2, per spin"}};
   j["density_error"] = {{"integrated_absolute", r.density_l1},
                         {"maximum", r.density_max},
                         {"tolerance", o.density_tolerance}};
@@ -387,9 +392,9 @@ std::vector<std::string> csv_header(const InvertInput& in, const InversionResult
   for (int s = 0; s < ns; ++s) h.push_back(spin("n_error", s, nu));
   h.push_back("trusted");
   for (int s = 0; s < ns; ++s) h.push_back(spin("v_s", s, "_hartree"));
-  h.push_back("v_guide_hartree");
+  h.push_back("v_reference_hartree");
   h.push_back("v_ext_hartree");
-  if (!r.v_xc.empty() || in.options.guide != InversionOptions::Guide::External) h.push_back("v_h_target_hartree");
+  if (!r.v_xc.empty() || in.options.reference_potential != InversionOptions::ReferencePotential::ExternalOnly) h.push_back("v_h_target_hartree");
   for (std::size_t s = 0; s < r.v_hxc.size(); ++s) h.push_back(spin("v_hxc", static_cast<int>(s), "_hartree"));
   for (std::size_t s = 0; s < r.v_xc.size(); ++s) h.push_back(spin("v_xc", static_cast<int>(s), "_hartree"));
   for (std::size_t s = 0; s < r.v_xc_model.size(); ++s) h.push_back(spin("v_xc_model", static_cast<int>(s), "_hartree"));
@@ -414,11 +419,11 @@ std::string inversion_csv(const InvertInput& in, const InversionResult& r) {
   o << "# " << s.name << ": Kohn-Sham inversion (" << method_name(in.options) << ", " << form_name(in.options) << "); "
     << (radial ? "r" : "x") << " in bohr, densities in electrons/" << (radial ? "bohr^3" : "bohr")
     << ", potentials in hartree. trusted = 1 where the target density exceeds " << g6(in.options.trust_threshold)
-    << "; elsewhere the potential is set by the regularization and the guide, not by the data.\n";
+    << "; elsewhere the potential is set by the regularization and the reference potential, not by the data.\n";
   const std::vector<std::string> h = csv_header(in, r);
   for (std::size_t i = 0; i < h.size(); ++i) o << (i ? "," : "") << h[i];
   o << "\n";
-  const bool with_h = !r.v_xc.empty() || in.options.guide != InversionOptions::Guide::External;
+  const bool with_h = !r.v_xc.empty() || in.options.reference_potential != InversionOptions::ReferencePotential::ExternalOnly;
   for (int k = radial ? 1 : 0; k < m.num_nodes(); ++k) {
     std::vector<double> row{m.x()(k)};
     for (int sp = 0; sp < ns; ++sp) row.push_back(r.target[sp](k));
@@ -426,7 +431,7 @@ std::string inversion_csv(const InvertInput& in, const InversionResult& r) {
     for (int sp = 0; sp < ns; ++sp) row.push_back(r.density[sp](k) - r.target[sp](k));
     row.push_back(r.trusted[k] ? 1.0 : 0.0);
     for (int sp = 0; sp < ns; ++sp) row.push_back(r.v_s[sp](k));
-    row.push_back(r.v_guide[0](k));
+    row.push_back(r.v_reference[0](k));
     row.push_back(r.v_ext(k));
     if (with_h) row.push_back(r.v_h(k));
     for (const auto& v : r.v_hxc) row.push_back(v(k));
@@ -490,7 +495,7 @@ std::string inversion_gnuplot(const InvertInput& in, const InversionResult& r, c
     << "  set key bottom right\n"
     << "  set offsets 0, 0, graph 0.05, graph 0.05\n";
   // Grey where the target density is below the trust threshold: there v is set by the
-  // regularization and the guide, not by the data.
+  // regularization and the reference potential, not by the data.
   if (e.any) {
     int id = 1;
     if (!radial && e.lo > lo)
@@ -527,7 +532,7 @@ std::string inversion_gnuplot(const InvertInput& in, const InversionResult& r, c
       add(column_of(h, "v_s" + suf + "_hartree"), "v_s reconstructed" + std::string(ns == 1 ? "" : (sp == 0 ? " up" : " down")),
           3, sp == 0 ? "#1f77b4" : "#2ca02c");
     }
-    add(column_of(h, "v_guide_hartree"), "guide", 1, "#7f7f7f");
+    add(column_of(h, "v_reference_hartree"), "reference potential", 1, "#7f7f7f");
   }
   g << "  plot ";
   for (std::size_t i = 0; i < plots.size(); ++i) g << (i ? ", \\\n       " : "") << plots[i];

@@ -184,7 +184,7 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
       Channel c;
       c.spin = s;
       c.occupations = occ[s];
-      c.states = static_cast<int>(occ[s].size()) + std::max(spec.extra_states, occ[s].empty() ? 1 : 0);
+      c.states = static_cast<int>(occ[s].size()) + std::max(spec.unoccupied_levels, occ[s].empty() ? 1 : 0);
       for (int i = 0; i < c.states; ++i) c.labels.push_back(std::to_string(i + 1));
       channels_.push_back(c);
     }

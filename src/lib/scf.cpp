@@ -6,6 +6,7 @@
 
 #include "stillpoint/errors.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
+#include "stillpoint/xc_terms.hpp"
 
 namespace stillpoint {
 
@@ -130,7 +131,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     if (opt.verbose) std::fprintf(stderr, "%s\n", note.str().c_str());
     if (++restarts > kMaxRestarts || best_iteration == 0) {
       std::ostringstream msg;
-      msg << "SCF diverged with functional " << P.xc().describe() << ": " << what << " at iteration " << it
+      msg << "SCF diverged with functional " << xc_list_form(P.xc()) << ": " << what << " at iteration " << it
           << " (first after the best iterate, iteration " << best_iteration << ")";
       if (restarts > 1) msg << ", and " << restarts - 1 << " damped restarts did not help";
       msg << "; try a smaller mixing or another grid";
@@ -186,7 +187,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     if (!std::isfinite(step.energy) || !std::isfinite(step.residual)) {
       if (best_iteration == 0)
         throw NumericalError("SCF produced a non-finite energy or residual at iteration " + std::to_string(it) +
-                                 " with functional " + P.xc().describe(),
+                                 " with functional " + xc_list_form(P.xc()),
                              history_lines());
       restart(it, "non-finite energy or residual");
       continue;

@@ -8,6 +8,7 @@
 #include "stillpoint/atom_config.hpp"
 #include "stillpoint/atomic_file.hpp"
 #include "stillpoint/errors.hpp"
+#include "stillpoint/xc_terms.hpp"
 
 namespace stillpoint {
 
@@ -31,12 +32,21 @@ std::string system_line(const KsProblem& P) {
     o << "atom " << element_symbol(s.atom.Z) << " (Z = " << s.atom.Z << "), charge " << s.charge << ", configuration "
       << format_configuration(s.atom.configuration) << ", " << (s.spin_polarized ? "spin-polarized" : "spin-unpolarized");
   } else {
-    o << "line, " << s.line.nuclei.size() << " nuclei, " << P.electron_count() << " electrons, "
+    o << "line, " << s.line.nuclei.size() << (s.line.nuclei.size() == 1 ? " nucleus, " : " nuclei, ") << P.electron_count()
+      << (P.electron_count() == 1.0 ? " electron, " : " electrons, ")
       << (s.spin_polarized ? "spin-polarized" : "spin-unpolarized")
       << (s.line.interacting ? ", soft-Coulomb interaction a = " + fmt("%g", s.line.electron_softening) + " bohr"
                              : ", non-interacting");
   }
   return o.str();
+}
+
+bool interacting(const KsProblem& P) { return P.spec().geometry == Geometry::Radial || P.spec().line.interacting; }
+
+/// The functional as the input writes it; without terms, what is left of the interaction.
+std::string functional_text(const KsProblem& P) {
+  if (!P.xc().empty()) return xc_list_form(P.xc());
+  return interacting(P) ? "none (Hartree only)" : "none (non-interacting: no Hartree or exchange-correlation term)";
 }
 
 void require_finite(const Eigen::VectorXd& v, const std::string& what) {
@@ -49,7 +59,7 @@ std::string format_solution(const KsProblem& P, const KsSolution& S) {
   std::ostringstream o;
   const bool radial = P.mesh().geometry() == Geometry::Radial;
   o << "system " << P.spec().name << ": " << system_line(P) << "\n";
-  o << "  functional  " << P.xc().describe() << "\n";
+  o << "  functional  " << functional_text(P) << "\n";
   o << "  grid        " << P.spec().grid_name << ": " << P.mesh().describe() << "\n";
   o << "  SCF         converged in " << S.iterations << " iterations (potential residual "
     << fmt("%.2e", S.history.empty() ? 0.0 : S.history.back().residual) << " Ha)\n";
@@ -60,6 +70,13 @@ std::string format_solution(const KsProblem& P, const KsSolution& S) {
   line(radial ? "electron-nucleus     " : "external             ", S.energy.external);
   line("hartree              ", S.energy.hartree);
   line("exchange-correlation ", S.energy.xc);
+  // Each term of the sum on its own (weights included), so exchange and correlation can be
+  // compared separately.
+  for (const XcTermEnergy& t : xc_term_energies(P, S.density)) {
+      char buf[160];
+      std::snprintf(buf, sizeof buf, "      %-19s%20.10f  (%s)\n", t.name.c_str(), t.energy, t.kind.c_str());
+      o << buf;
+    }
   if (!radial) line("nucleus-nucleus      ", S.energy.nuclear_repulsion);
   o << "  levels (hartree)\n    state  spin  occupation          energy\n";
   for (const Level& lv : S.levels) {
@@ -87,7 +104,7 @@ std::string solution_json(const KsProblem& P, const KsSolution& S) {
     j["system"]["element"] = element_symbol(s.atom.Z);
     j["system"]["configuration"] = format_configuration(s.atom.configuration);
   }
-  j["functional"] = P.xc().describe();
+  j["functional"] = functional_text(P);
   j["grid"] = {{"preset", s.grid_name}, {"description", P.mesh().describe()}, {"nodes", P.mesh().num_nodes()}};
   const EnergyParts& E = S.energy;
   for (double v : {E.total, E.kinetic, E.external, E.hartree, E.xc, E.nuclear_repulsion, E.band})
@@ -103,6 +120,21 @@ std::string solution_json(const KsProblem& P, const KsSolution& S) {
                       {"occupation", lv.occupation},
                       {"energy", lv.energy}});
   j["levels"] = levels;
+  // Per term of the XC sum, and the exchange and correlation parts they add up to.
+  json terms = json::array();
+  double ex = 0.0, ec = 0.0;
+  bool split = true;  // only when every term is pure exchange or pure correlation
+  for (const XcTermEnergy& t : xc_term_energies(P, S.density)) {
+    terms.push_back({{"name", t.name}, {"weight", t.weight}, {"kind", t.kind}, {"energy", t.energy}});
+    if (t.kind == "exchange") ex += t.energy;
+    else if (t.kind == "correlation") ec += t.energy;
+    else split = false;
+  }
+  j["xc_terms"] = terms;
+  if (split) {
+    j["energy"]["exchange"] = ex;
+    j["energy"]["correlation"] = ec;
+  }
   json hist = json::array();
   for (const ScfStep& st : S.history)
     hist.push_back({{"iteration", st.iteration}, {"energy", st.energy}, {"residual", st.residual}});
