@@ -218,8 +218,8 @@ TEST(Functionals, GeneratedTableListsEveryFunctional) {
     EXPECT_NE(text.find("| " + std::to_string(e.id) + " | `" + e.name + "` |"), std::string::npos) << e.name;
 }
 
-// Inversion of a BLYP density gives back the BLYP potential: Ne, Wu-Yang with the Hartree
-// reference potential, the constant fixed by the forward HOMO (which the inversion cannot
+// Inversion of a BLYP density gives back the BLYP potential: Ne, Wu-Yang with v_ext + v_H as
+// the reference potential, the constant fixed by the forward HOMO (which the inversion cannot
 // know otherwise). Compared where the density exceeds 1e-4 bohr^-3.
 TEST(Blyp, InversionRecoversTheBlypPotential) {
   sp::SystemSpec s = atom(10, {"gga_x_b88", "gga_c_lyp"}, false);
@@ -229,7 +229,7 @@ TEST(Blyp, InversionRecoversTheBlypPotential) {
   for (const auto& l : sol.levels)
     if (l.occupation > 0) homo = std::max(homo, l.energy);
   sp::InversionOptions o;
-  o.guide = sp::InversionOptions::Guide::Hartree;
+  o.reference_potential = sp::InversionOptions::ReferencePotential::ExternalAndHartree;
   o.constant = sp::InversionOptions::Constant::Ionization;
   o.ionization_energy = -homo;
   o.density_tolerance = 1e-10;
