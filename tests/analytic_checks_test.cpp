@@ -2,7 +2,7 @@
 // published (or independently computed) values for model systems. Hartree atomic units.
 //
 // Sources are named beside each check. "check-values §x" is
-// /work/shared/reference/check-values.md, with the confidence label given there.
+// basis-data/reference/check-values.md, with the confidence label given there.
 #include <gtest/gtest.h>
 
 #include <cmath>

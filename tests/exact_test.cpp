@@ -2,7 +2,7 @@
 // (energies in hartree, lengths in bohr, densities in electrons per bohr).
 //
 // Sources are named beside each check. "check-values §x" is
-// /work/shared/reference/check-values.md, with the confidence label given there:
+// basis-data/reference/check-values.md, with the confidence label given there:
 // [recalled+computed] published numbers recomputed independently, [computed] numbers computed
 // there from the model (regression or cross-check values, not published ones), [memory] from
 // memory only. "derived" marks closed-form facts derived from the Hamiltonian itself.

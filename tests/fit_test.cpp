@@ -6,7 +6,7 @@
 //    is known by construction, no outside value needed);
 //  - K. Schwarz, Phys. Rev. B 5, 2466 (1972): alpha_HF per atom such that the self-consistent
 //    X-alpha energy equals the Hartree–Fock energy; values and HF targets from
-//    ../shared/reference/check-values.md §4g, label [recalled+computed]: the table values are
+//    basis-data/reference/check-values.md §4g, label [recalled+computed]: the table values are
 //    recalled from the paper and were recomputed independently with a separate radial solver
 //    (HF energies: Clementi & Roetti, At. Data Nucl. Data Tables 14, 177 (1974), §4f).
 #include <gtest/gtest.h>

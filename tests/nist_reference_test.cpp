@@ -4,7 +4,7 @@
 // Reference: NIST Standard Reference Database 141, "Atomic Reference Data for Electronic
 // Structure Calculations", S. Kotochigova, Z. H. Levine, E. L. Shirley, M. D. Stiles,
 // C. W. Clark, Phys. Rev. A 55, 191 (1997) [read: the Mg and Mg+ rows of the NIST element
-// page, in /work/shared/reference/nist-lda-lsd.csv; check-values §4f]. Functional: Slater
+// page, in basis-data/reference/nist-lda-lsd.csv; check-values §4f]. Functional: Slater
 // exchange + VWN (libxc lda_x + lda_c_vwn).
 #include <gtest/gtest.h>
 

@@ -80,7 +80,7 @@ bool fd_agrees(double fd, double derivative, double lower, double n) {
 
 }  // namespace
 
-// Source: /work/shared/reference/check-values.md §3a table (a = 1, r_s = 1/(2n), values printed
+// Source: basis-data/reference/check-values.md §3a table (a = 1, r_s = 1/(2n), values printed
 // to 8 decimals, hence a tolerance of a little over half a unit in the last place).
 TEST(SoftExchange1d, CheckValuesAtUnitSoftening) {
   struct Row {
@@ -97,7 +97,8 @@ TEST(SoftExchange1d, CheckValuesAtUnitSoftening) {
   }
 }
 
-// Source: /work/shared/dependency-notes.md §4 (libxc ID 21, b = 1, unpolarized; six decimals).
+// Source: libxc 5.2.3 evaluated for ID 21 (lda_x_1d_soft), b = 1, unpolarized, six decimals, as
+// recorded by the project when the tabulation was written (a general-purpose library's output).
 TEST(SoftExchange1d, LibxcReferenceValuesAtUnitSoftening) {
   const double n[] = {0.01, 0.1, 1};
   const double eps[] = {-0.025383, -0.139278, -0.401099};
