@@ -165,7 +165,7 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
     }
   }
   g.base.systems = apply_parameters(g.base.systems, g.parameters, theta);
-  detail::check_parameter_bounds(parsed, file);
+  detail::check_parameter_bounds(parsed, file, o.optimizer == FitOptions::Optimizer::Lbfgs);
 
   FitSpec& spec = wf.spec;
   std::vector<int> free_index;

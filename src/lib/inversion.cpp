@@ -1,5 +1,6 @@
 // Kohn–Sham inversion (see include/stillpoint/inversion.hpp for the mathematics).
 #include "stillpoint/inversion.hpp"
+#include "input_detail.hpp"
 
 #include <Eigen/Cholesky>
 #include <algorithm>
@@ -193,8 +194,7 @@ TargetDensity target_on_mesh(const std::vector<double>& x, const std::vector<std
 
 TargetDensity read_target_density(const std::string& path, const Mesh& mesh, const std::vector<double>& electrons,
                                   const SourceLocation& where, const std::string& column) {
-  std::ifstream f(path);
-  if (!f) throw InputError(where, "cannot open the target density file '" + path + "'");
+  std::istringstream f = detail::open_table(path, "cannot open the target density file '" + path + "'", where);
   const int ns = static_cast<int>(electrons.size());
   const bool radial = mesh.geometry() == Geometry::Radial;
   std::string line;
