@@ -435,9 +435,23 @@ struct LengthScale {
   std::string what;
 };
 
-// Node spacing per harmonic length at which the lowest level of a harmonic well is still
-// exact to 1e-7 relative on degree-8 elements (measured, tests/bad_input_test.cpp).
-constexpr double kResolvePerNode = 0.25;
+// Largest node spacing, per harmonic length, at which the lowest level omega/2 of a harmonic
+// well is still exact to 1e-7 relative (measured: at most 5e-8 at these limits for every
+// degree, tests/guards_test.cpp). Low degrees converge more slowly, so they need more nodes.
+double resolve_per_node(int degree) {
+  switch (degree) {
+    case 2:
+      return 0.035;
+    case 3:
+      return 0.1;
+    case 4:
+      return 0.175;
+    case 5:
+      return 0.2;
+    default:
+      return 0.25;
+  }
+}
 
 void read_line(const Ctx& c, const toml::table& t, const std::string& path, SystemSpec& s, const GridInput& grid) {
   LineSystem& ls = s.line;
@@ -530,7 +544,7 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
         term.center = get_number(c, *pt, pp, "center", 0.0);
         if (term.omega != 0) {
           const double len = 1.0 / std::sqrt(std::abs(term.omega));
-          scales.push_back({len, kResolvePerNode, loc_in(c, *pt, pp, "omega"),
+          scales.push_back({len, resolve_per_node(grid.spec.degree), loc_in(c, *pt, pp, "omega"),
                             "the harmonic length 1/sqrt(omega) = " + num(len) + " bohr"});
         }
       } else if (k == "gaussian") {
@@ -540,12 +554,12 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
         term.center = get_number(c, *pt, pp, "center", 0.0);
         term.width = get_number(c, *pt, pp, "width", term.width);
         if (!(term.width > 0)) throw InputError(loc_in(c, *pt, pp, "width"), "must be positive (bohr)");
-        scales.push_back({term.width, kResolvePerNode, loc_in(c, *pt, pp, "width"),
+        scales.push_back({term.width, resolve_per_node(grid.spec.degree), loc_in(c, *pt, pp, "width"),
                           "the Gaussian width = " + num(term.width) + " bohr"});
         if (term.depth > 0) {
           // A deep well is harmonic at its bottom with omega^2 = depth/width^2.
           const double len = std::sqrt(term.width) / std::pow(term.depth, 0.25);
-          scales.push_back({len, kResolvePerNode, loc_in(c, *pt, pp, "depth"),
+          scales.push_back({len, resolve_per_node(grid.spec.degree), loc_in(c, *pt, pp, "depth"),
                             "the width sqrt(width)/depth^(1/4) = " + num(len) + " bohr of the Gaussian well"});
         }
       } else if (k == "table") {
@@ -584,7 +598,7 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
   const MeshSpec& g = grid.spec;
   const double spacing = grid_cost(g, Geometry::Line, GridUse::Banded).element_size / g.degree;
   for (const LengthScale& ls_ : scales)
-    if (spacing > ls_.per_node * ls_.length)
+    if (spacing > ls_.per_node * ls_.length * (1.0 + 1e-9))  // rounding of sizes given at the limit
       throw InputError(grid.where(c, t, path, "element_size"),
                        "the 1D grid is too coarse for " + ls_.what + " (" + ls_.at.key + " at line " +
                            std::to_string(ls_.at.line) + "): node spacing element_size/degree = " + num(spacing) +

@@ -298,14 +298,15 @@ TargetDensity read_target_density(const std::string& path, const Mesh& mesh, con
     const int need = std::max(xcol, *std::max_element(ncol.begin(), ncol.end())) + 1;
     if (static_cast<int>(fields.size()) < need)
       throw at(lineno, "expected at least " + std::to_string(need) + " columns, found " + std::to_string(fields.size()));
-    if (!parse_number(fields[xcol], xv) || !std::isfinite(xv)) throw at(lineno, "position '" + fields[xcol] + "' is not a finite number");
+    if (!parse_number(fields[xcol], xv) || !std::isfinite(xv))
+      throw at(lineno, "position '" + detail::printable(fields[xcol]) + "' is not a finite number");
     if (!x.empty() && !(xv > x.back())) throw at(lineno, "positions must increase strictly from row to row");
     if (radial && xv < 0) throw at(lineno, "radial positions must be non-negative");
     x.push_back(xv);
     for (int s = 0; s < ns; ++s) {
       double nv;
       if (!parse_number(fields[ncol[s]], nv) || !std::isfinite(nv))
-        throw at(lineno, "density '" + fields[ncol[s]] + "' is not a finite number");
+        throw at(lineno, "density '" + detail::printable(fields[ncol[s]]) + "' is not a finite number");
       if (nv < 0) {
         if (nv > -1e-14) nv = 0.0;  // rounding noise of a tail
         else throw at(lineno, "density " + fields[ncol[s]] + " is negative");

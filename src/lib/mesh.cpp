@@ -45,23 +45,22 @@ GridCost grid_cost(const MeshSpec& spec, Geometry geometry, GridUse use) {
   }
   c.nodes = c.elements * p + 1.0;
   const double N = c.nodes;
-  // Coefficients from the data structures, not measurements: a banded solve holds the
-  // element operators, banded factors (~6 (p + 1) doubles per node) and some 64 vectors
-  // (orbitals, Lanczos basis, Pulay history); a dense one ~12 N x N matrices (kinetic
-  // blocks, eigenvectors, Hessian, stiffness, temporaries); the product grid ~56 N^2
-  // vectors (Davidson basis, images and block, two-body matrices). The times assume
-  // ~1e-3 s per node for an SCF, ~30 dense eigensolves and ~100 Davidson products.
+  // Coefficients fitted to peak resident memory and wall time of this program (one core,
+  // OpenBLAS single-threaded; baseline of ~12 MB removed): solve, 1.6 kB per node at degree
+  // 8 (32001 and 128001 nodes: 61 and 211 MB, 2.2 and 54 s); invert, 76 N^2 bytes and
+  // 7e-9 N^3 s (961 nodes: 82 MB, 6 s); exact, 560 N^2 bytes and 8e-8 N^3 s including its
+  // grid checks (801 nodes: 360 MB, 40 s). Rounded up: an estimate, not a promise.
   switch (use) {
     case GridUse::Banded:
-      c.bytes = 8.0 * N * (6.0 * (p + 1.0) + 64.0);
-      c.seconds = 1e-3 * N;
+      c.bytes = 8.0 * N * (12.0 * (p + 1.0) + 96.0);
+      c.seconds = 3e-9 * N * N;
       break;
     case GridUse::Dense:
-      c.bytes = 8.0 * 12.0 * N * N;
-      c.seconds = 3e-9 * N * N * N;
+      c.bytes = 96.0 * N * N;
+      c.seconds = 7e-9 * N * N * N;
       break;
     case GridUse::Product:
-      c.bytes = 8.0 * 56.0 * N * N;
+      c.bytes = 640.0 * N * N;
       c.seconds = 1e-7 * N * N * N;
       break;
   }
