@@ -200,6 +200,17 @@ TEST(GridGuards, HugeChargeIsPlacedAtTheChargeKeyWithAShortMessage) {
   EXPECT_LT(c.message.size(), 400u) << c.message;
 }
 
+// extra_states = 2e9 would build two billion labels before the old check; the discretization
+// refuses it first (solve places it at the system, tests/cli_test.cpp).
+TEST(GridGuards, AbsurdExtraStatesAreRefusedBeforeAllocating) {
+  const sp::SolveInput in = sp::parse_solve_input(
+      "[[system]]\nkind = \"line\"\nextra_states = 2000000000\n[[system.nucleus]]\ncharge = 1.0\nposition = 0.0\nsoftening = 1.0\n",
+      "case.toml");
+  const Caught e = catch_input_error([&] { const sp::KsProblem P(in.systems.front()); });
+  ASSERT_TRUE(e.thrown);
+  EXPECT_NE(e.message.find("unknowns for 2000000001 states"), std::string::npos) << e.message;
+}
+
 // Weak item: atom r_max = 1e300 was a numerical failure.
 TEST(GridGuards, AbsurdRadiusIsAnInputError) {
   const Caught c = solve_error("[[system]]\nkind = \"atom\"\nelement = \"He\"\ngrid = { r_max = 1e300 }\n");

@@ -189,7 +189,13 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
       Channel c;
       c.spin = s;
       c.occupations = occ[s];
-      c.states = static_cast<int>(occ[s].size()) + std::max(spec.extra_states, occ[s].empty() ? 1 : 0);
+      // Before the labels are built: extra_states comes from the input and may be absurd.
+      const long long states = static_cast<long long>(occ[s].size()) + std::max(spec.extra_states, occ[s].empty() ? 1 : 0);
+      if (states >= mesh_->num_unknowns())
+        throw InputError("the grid has only " + std::to_string(mesh_->num_unknowns()) + " unknowns for " +
+                         std::to_string(states) + " states (occupations " + describe_occupations(occ[s]) +
+                         "): use a larger grid");
+      c.states = static_cast<int>(states);
       for (int i = 0; i < c.states; ++i) c.labels.push_back(std::to_string(i + 1));
       channels_.push_back(c);
     }
