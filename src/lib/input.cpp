@@ -520,10 +520,10 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
     if (nuc.charge > 0) {
       const std::string np = path + ".nucleus[" + std::to_string(k) + "]";
       const toml::table& nt = *t.get("nucleus")->as_array()->get(k)->as_table();
-      scales.push_back({std::pow(nuc.softening * nuc.softening * nuc.softening / nuc.charge, 0.25), 0.5,
-                        loc_in(c, nt, np, "charge"), "the width (softening^3/charge)^(1/4) = " +
-                                                         num(std::pow(nuc.softening * nuc.softening * nuc.softening / nuc.charge, 0.25)) +
-                                                         " bohr of the well of nucleus " + std::to_string(k)});
+      const double len = std::pow(nuc.softening * nuc.softening * nuc.softening / nuc.charge, 0.25);
+      scales.push_back({len, 0.5, loc_in(c, nt, np, "charge"),
+                        "the width (softening^3/charge)^(1/4) = " + num(len) + " bohr of the well of nucleus " +
+                            std::to_string(k)});
     }
   }
   if (const toml::node* pn = t.get("potential")) {
@@ -597,6 +597,13 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
   // used, which is what the mesh will have.
   const MeshSpec& g = grid.spec;
   const double spacing = grid_cost(g, Geometry::Line, GridUse::Banded).element_size / g.degree;
+  if (spacing > 0.5 * min_soft)
+    throw InputError(grid.where(c, t, path, "element_size"),
+                     "the 1D grid is too coarse: node spacing element_size/degree = " + num(spacing) +
+                         " bohr exceeds half the smallest softening length (" + min_soft_at.key + " = " + num(min_soft) +
+                         " bohr); use element_size <= " + num(0.5 * min_soft * g.degree) +
+                         " or a higher degree");
+  // After the softening check, so that its message stays what it was for such inputs.
   for (const LengthScale& ls_ : scales)
     if (spacing > ls_.per_node * ls_.length * (1.0 + 1e-9))  // rounding of sizes given at the limit
       throw InputError(grid.where(c, t, path, "element_size"),
@@ -604,12 +611,6 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
                            std::to_string(ls_.at.line) + "): node spacing element_size/degree = " + num(spacing) +
                            " bohr exceeds " + num(ls_.per_node) + " times that length; use element_size <= " +
                            num(ls_.per_node * ls_.length * g.degree) + " bohr or a higher degree");
-  if (spacing > 0.5 * min_soft)
-    throw InputError(grid.where(c, t, path, "element_size"),
-                     "the 1D grid is too coarse: node spacing element_size/degree = " + num(spacing) +
-                         " bohr exceeds half the smallest softening length (" + min_soft_at.key + " = " + num(min_soft) +
-                         " bohr); use element_size <= " + num(0.5 * min_soft * g.degree) +
-                         " or a higher degree");
   // Electron count and spin split.
   const double ne = s.electron_count();
   const SourceLocation charge_at = loc_in(c, t, path, "charge");
