@@ -87,7 +87,7 @@ std::string format_seconds(double s) {
   else if (s < 3 * 86400)
     std::snprintf(buf, sizeof buf, "%.2g h", s / 3600);
   else
-    std::snprintf(buf, sizeof buf, "%.2g days", s / 86400);
+    std::snprintf(buf, sizeof buf, "%.3g days", s / 86400);
   return buf;
 }
 
