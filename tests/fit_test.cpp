@@ -467,6 +467,27 @@ target = -2.2
       << e;
 }
 
+// L-BFGS cannot start on a bound; this is found while reading, at the bound's key, so that the
+// fit command stops before it creates its output folder.
+TEST(FitWorkflowErrors, StartOnABoundIsPlacedAtTheBound) {
+  const std::string w = std::string(kLineSystems) + R"(
+[[parameter]]
+kind = "xc_parameter"
+term = "model:rational_c_1d"
+fields = ["a1"]
+lower = 0.0306
+upper = 0.2
+[[loss]]
+kind = "energy"
+system = "He"
+target = -2.2
+)";
+  const std::string e = error_of(w, "wf.toml");
+  EXPECT_NE(e.find("wf.toml:26:9"), std::string::npos) << e;
+  EXPECT_NE(e.find("parameter[0].lower"), std::string::npos) << e;
+  EXPECT_NE(e.find("starts on one of its bounds"), std::string::npos) << e;
+}
+
 TEST(FitWorkflowErrors, EmptyTrainingSet) {
   const std::string w = std::string(kLineSystems) + R"(
 [[parameter]]

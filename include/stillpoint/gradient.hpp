@@ -34,6 +34,8 @@ struct ParameterRef {
   std::string name;
   double lower = -std::numeric_limits<double>::infinity();
   double upper = std::numeric_limits<double>::infinity();
+  /// The input key that chose `index` (empty when built in code), to place errors found later.
+  SourceLocation where;
 };
 
 /// Finite-difference steps: `relative` * max(|theta|, 1) for potentials, weights and
@@ -63,6 +65,8 @@ struct LossTerm {
   std::vector<double> reference;
   std::vector<double> region;
   std::string name;
+  /// The input key that chose `state` (empty when built in code).
+  SourceLocation where;
 };
 
 struct GradientOptions {

@@ -29,6 +29,29 @@ struct MeshSpec {
   double r_max = 80.0;               ///< outer radius in bohr
 };
 
+/// How a grid will be used: the memory of a banded solve grows with the node count N, a dense
+/// one (invert) with N^2, the two-electron product grid (exact) with N^2 times its Davidson basis.
+enum class GridUse { Banded, Dense, Product };
+
+/// Size of the grid a MeshSpec asks for, in floating point so that absurd requests are
+/// reported instead of overflowing an integer, with rough memory and time estimates.
+struct GridCost {
+  double elements = 0.0;
+  double nodes = 0.0;
+  double element_size = 0.0;  ///< line: the real element length 2L/E (bohr); radial: first element
+  double bytes = 0.0;         ///< rough peak memory of one calculation on this grid
+  double seconds = 0.0;       ///< rough run time on one core (order of magnitude only)
+};
+
+/// Peak memory a single grid may need before it is refused (bytes; docs/input.md).
+inline constexpr double kMaxGridBytes = 4e9;
+
+GridCost grid_cost(const MeshSpec& spec, Geometry geometry, GridUse use);
+
+/// "4.2 GB"-style text of a byte count, and "3 min"-style text of a duration, for messages.
+std::string format_bytes(double bytes);
+std::string format_seconds(double seconds);
+
 class Mesh {
  public:
   /// Uniform elements on [-L, L].

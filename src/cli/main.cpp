@@ -12,6 +12,7 @@
 #include <CLI/CLI.hpp>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <filesystem>
 #include <iostream>
 
@@ -44,6 +45,33 @@ void check_output_file(const std::string& path, const char* option) {
   std::error_code ec;
   if (fs::is_directory(path, ec))
     throw sp::InputError(std::string(option) + " " + path + ": is a directory; give a file name");
+}
+
+// Two spellings of one file (relative, absolute, through links); a file that does not exist
+// yet is compared by its absolute, normalized path.
+bool same_path(const std::string& a, const std::string& b) {
+  std::error_code ec;
+  if (fs::exists(a, ec) && fs::exists(b, ec)) return fs::equivalent(a, b, ec);
+  return fs::weakly_canonical(fs::absolute(a), ec) == fs::weakly_canonical(fs::absolute(b), ec);
+}
+
+std::string format_g(double v) {
+  char buf[32];
+  std::snprintf(buf, sizeof buf, "%g", v);
+  return buf;
+}
+
+// CLI11's PositiveNumber lets NaN through and prints its upper bound with 309 digits.
+CLI::Validator positive_finite() {
+  return CLI::Validator(
+      [](std::string& text) {
+        char* end = nullptr;
+        const double v = std::strtod(text.c_str(), &end);
+        if (end == text.c_str() || *end != '\0' || !std::isfinite(v) || !(v > 0))
+          return "must be a positive finite number, not '" + text + "'";
+        return std::string();
+      },
+      "POSITIVE");
 }
 
 bool solution_is_finite(const sp::KsSolution& s) {
@@ -113,8 +141,19 @@ int run_solve(const std::string& file, const std::string& out_dir, bool verbose)
 
 int run_check(const std::vector<std::string>& tables, double tolerance, const std::string& report,
               const std::string& junit, const std::string& grid, bool quiet) {
+  // Also checked here for callers that bypass the option parser.
+  if (!(std::isfinite(tolerance) && tolerance > 0))
+    throw sp::InputError("--tolerance must be a positive finite number (hartree), not " + format_g(tolerance));
   check_output_file(report, "--report");
   check_output_file(junit, "--junit");
+  if (!report.empty() && !junit.empty() && same_path(report, junit))
+    throw sp::InputError("--report and --junit name the same file '" + report + "'; give two different paths");
+  for (std::size_t i = 0; i < tables.size(); ++i)
+    for (std::size_t j = 0; j < i; ++j)
+      if (same_path(tables[i], tables[j]))
+        throw sp::InputError(sp::SourceLocation{tables[i], 0, 0, ""},
+                             "this table is given twice (arguments " + std::to_string(j + 1) + " and " +
+                                 std::to_string(i + 1) + "); its rows would be counted twice");
   try {
     (void)sp::grid_preset(sp::Geometry::Radial, grid);
   } catch (const sp::InputError& e) {
@@ -165,7 +204,7 @@ int main(int argc, char** argv) {
   auto* check = app.add_subcommand("check", "Regression check of atoms against reference tables (long CSV format)");
   check->add_option("tables", tables, "reference tables")->required()->expected(1, -1)->check(CLI::ExistingFile);
   check->add_option("--tolerance", tolerance, "allowed |computed - reference| in hartree (default 1e-6)")
-      ->check(CLI::PositiveNumber);
+      ->check(positive_finite());
   check->add_option("--report", report, "write a JSON report here");
   check->add_option("--junit", junit, "write a JUnit XML report here");
   check->add_option("--grid", grid, "grid preset for every atom (coarse, default, tight)");
@@ -182,7 +221,7 @@ int main(int argc, char** argv) {
                  "compare every component with central finite differences of the whole converged program; exit 1 on "
                  "disagreement");
   grad->add_option("--verify-tolerance", gopt.verify_tolerance, "relative tolerance of --verify (default 1e-6)")
-      ->check(CLI::PositiveNumber);
+      ->check(positive_finite());
   grad->add_option("--output,-o", gopt.output, "write grad.json (and CSV gradient fields for grid potentials) here");
   grad->add_flag("--quiet,-q", gopt.quiet, "no progress lines");
 
@@ -203,7 +242,8 @@ int main(int argc, char** argv) {
   fit->add_option("input", fopt.input, "workflow file (TOML), see docs/fit.md")->required()->check(CLI::ExistingFile);
   fit->add_option("--output,-o", fopt.output, "write the report, fitted model, tables and plots here");
   fit->add_flag("--resume", fopt.resume, "continue from the checkpoint in the output directory");
-  fit->add_option("--threads", fopt.threads, "systems evaluated in parallel (default: from the workflow file)");
+  fit->add_option("--threads", fopt.threads, "systems evaluated in parallel (default: from the workflow file)")
+      ->check(CLI::Range(1, 1000000000));
   fit->add_flag("--quiet,-q", fopt.quiet, "no progress lines");
 
   FunctionalsCommandOptions xopt;
@@ -226,6 +266,8 @@ int main(int argc, char** argv) {
     if (*solve) return run_solve(solve_file, out_dir, verbose);
     if (*check) return run_check(tables, tolerance, report, junit, grid, quiet);
     if (*grad) {
+      if (!std::isfinite(gopt.verify_tolerance))
+        throw sp::InputError("--verify-tolerance must be a positive finite number, not " + format_g(gopt.verify_tolerance));
       check_output_dir(gopt.output);
       return run_grad(gopt);
     }

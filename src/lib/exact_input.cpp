@@ -282,7 +282,7 @@ ExactInput parse_root(toml::table root, const std::string& file) {
   if (root.contains("scf"))
     in.warnings.push_back(location(file, *root.get("scf"), "scf").describe() + ": ignored by exact (there is no SCF)");
   // Reads and validates every system as `solve` would (this also checks [[system]] exists).
-  const SolveInput base = detail::parse_solve_root(root, file, {"exact"});
+  const SolveInput base = detail::parse_solve_root(root, file, {"exact"}, GridUse::Product);
   const toml::array& arr = *root.get("system")->as_array();
   std::set<std::string> names;
   for (std::size_t i = 0; i < base.systems.size(); ++i) {
@@ -329,7 +329,7 @@ ExactInput parse_root(toml::table root, const std::string& file) {
       one.insert_or_assign("system", sys_arr);
       SystemSpec ms;
       try {
-        ms = detail::parse_solve_root(one, file, {}).systems.front();
+        ms = detail::parse_solve_root(one, file, {}, GridUse::Product).systems.front();
         check_system_scope(file, mt, ms, path, in);
       } catch (const InputError& e) {
         std::string what = e.what();

@@ -348,8 +348,7 @@ T required(const std::string& file, const toml::table& t, const std::string& pat
 }
 
 void read_density_file(const std::string& path, ExactManifestEntry& e) {
-  std::ifstream f(path);
-  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open the density file named in the manifest");
+  std::istringstream f = detail::open_table(path, "cannot open the density file named in the manifest");
   std::string line;
   int lineno = 0;
   std::vector<std::string> header;
@@ -375,7 +374,7 @@ void read_density_file(const std::string& path, ExactManifestEntry& e) {
         if (used != cells[i].size() || !std::isfinite(v)) throw std::invalid_argument("bad");
         cols[i].push_back(v);
       } catch (const std::exception&) {
-        throw InputError(SourceLocation{path, lineno, 0, header[i]}, "not a finite number: '" + cells[i] + "'");
+        throw InputError(SourceLocation{path, lineno, 0, header[i]}, "not a finite number: '" + detail::printable(cells[i]) + "'");
       }
     }
   }

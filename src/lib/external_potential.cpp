@@ -5,10 +5,18 @@
 #include <fstream>
 #include <sstream>
 
+#include "input_detail.hpp"
 #include "interpolation.hpp"
 #include "stillpoint/errors.hpp"
 
 namespace stillpoint {
+
+namespace {
+// Bounds on table values (docs/input.md): beyond them the spline and the eigensolver only
+// produce overflow, and no physical model potential comes near.
+constexpr double kMaxTablePotential = 1e8;
+constexpr double kMaxTablePosition = 1e6;
+}  // namespace
 
 double ExternalTerm::value(double x) const {
   switch (kind) {
@@ -32,9 +40,8 @@ double ExternalTerm::value(double x) const {
 }
 
 ExternalTerm read_potential_table(const std::string& path) {
-  std::ifstream in(path);
   SourceLocation where{path, 0, 0, ""};
-  if (!in) throw InputError(where, "cannot open potential table");
+  std::istringstream in = detail::open_table(path, "cannot open potential table");
   ExternalTerm t;
   t.kind = ExternalTerm::Kind::Table;
   t.source = path;
@@ -52,7 +59,17 @@ ExternalTerm read_potential_table(const std::string& path) {
       if (t.table_x.empty() && std::isalpha(static_cast<unsigned char>(line[first]))) continue;  // header
       throw InputError(where, "expected two numbers (x in bohr, v in hartree)");
     }
+    std::string extra;
+    if (ss >> extra)
+      throw InputError(where, "expected two columns (x in bohr, v in hartree) but the row has more ('" +
+                                  detail::printable(extra, 20) + "')");
     if (!std::isfinite(x) || !std::isfinite(v)) throw InputError(where, "non-finite value");
+    if (std::abs(x) > kMaxTablePosition || std::abs(v) > kMaxTablePotential)
+      throw InputError(where, std::abs(x) > kMaxTablePosition
+                                  ? "|x| = " + detail::format_number(std::abs(x), 4) + " bohr is beyond the limit of " +
+                                        detail::format_number(kMaxTablePosition, 4) + " bohr"
+                                  : "|v| = " + detail::format_number(std::abs(v), 4) + " hartree is beyond the limit of " +
+                                        detail::format_number(kMaxTablePotential, 4) + " hartree");
     if (!t.table_x.empty() && x <= t.table_x.back()) throw InputError(where, "x values must be strictly ascending");
     t.table_x.push_back(x);
     t.table_v.push_back(v);

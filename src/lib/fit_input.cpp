@@ -132,7 +132,7 @@ FitWorkflow parse_root(toml::table& root, const std::string& file) {
 
   // Parameters: start values first (they move the systems), then bounds, then the rest.
   detail::apply_fit_start_values(parsed, file);
-  detail::check_parameter_bounds(parsed, file);
+  detail::check_parameter_bounds(parsed, file, o.optimizer == FitOptions::Optimizer::Lbfgs);
   const Eigen::VectorXd theta = parameter_values(systems, g.parameters);
 
   FitSpec& spec = wf.spec;

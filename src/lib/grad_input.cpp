@@ -170,6 +170,7 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
       throw InputError(location(file, *t, path + ".kind"), "gaussian, harmonic and nucleus parameters need line systems");
     const toml::node* in = t->get("index");
     base.index = in ? static_cast<int>(in->value<int64_t>().value_or(-1)) : 0;
+    base.where = key_location(file, *t, path, "index");
     std::vector<std::string> fields = all_fields;
     if (const toml::node* fn = t->get("fields")) {
       fields.clear();
@@ -217,8 +218,7 @@ std::vector<std::string> split_fields(const std::string& line) {
 
 // Two columns of a CSV table: position (first column) and the named (or second) column.
 ExternalTerm read_table_columns(const std::string& path, const std::vector<std::string>& value_names, const char* what) {
-  std::ifstream in(path);
-  if (!in) throw InputError(SourceLocation{path, 0, 0, ""}, std::string("cannot open the ") + what + " table");
+  std::istringstream in = detail::open_table(path, std::string("cannot open the ") + what + " table");
   ExternalTerm t;
   t.kind = ExternalTerm::Kind::Table;
   t.source = path;
@@ -264,9 +264,22 @@ ExternalTerm read_table_columns(const std::string& path, const std::vector<std::
 
 }  // namespace
 
-std::vector<double> detail::density_on_mesh(const std::string& path, const SystemSpec& s, std::vector<std::string>& warnings) {
+std::vector<double> detail::density_on_mesh(const std::string& path, const SystemSpec& s, std::vector<std::string>& warnings,
+                                            bool density) {
   const ExternalTerm table =
       read_table_columns(path, {"n", "density", "n_per_bohr", "n_per_bohr3"}, "density");
+  if (density) {
+    // A density is non-negative; rounding may leave tiny negative tails, not more.
+    double peak = 0.0;
+    for (double v : table.table_v) peak = std::max(peak, v);
+    for (std::size_t i = 0; i < table.table_v.size(); ++i)
+      if (!(peak > 0) || table.table_v[i] < -1e-8 * peak)
+        throw InputError(SourceLocation{path, 0, 0, ""},
+                         peak > 0 ? "the density is negative (" + detail::format_number(table.table_v[i], 4) + ") at " +
+                                        detail::format_number(table.table_x[i], 6) +
+                                        " bohr, more than 1e-8 of its maximum " + detail::format_number(peak, 4)
+                                  : std::string("the density is nowhere positive"));
+  }
   const Mesh mesh = mesh_of(s);
   std::vector<double> out(mesh.num_nodes(), 0.0);
   bool beyond = false;
@@ -338,7 +351,7 @@ void read_loss(detail::GradParsed& parsed, const std::string& file, const toml::
       if (!std::filesystem::exists(rp)) throw InputError(location(file, *t->get("reference"), path + ".reference"), "file not found: " + rp.string());
       const SystemSpec& s = g.base.systems[L.system];
       try {
-        L.reference = detail::density_on_mesh(rp.string(), s, g.warnings);
+        L.reference = detail::density_on_mesh(rp.string(), s, g.warnings, /*density=*/true);
       } catch (const InputError& err) {
         if (!err.where().file.empty()) throw;
         throw InputError(location(file, *t->get("reference"), path + ".reference"), err.what());
@@ -362,6 +375,7 @@ void read_loss(detail::GradParsed& parsed, const std::string& file, const toml::
     } else if (kind == "eigenvalue") {
       L.kind = LossTerm::Kind::Eigenvalue;
       L.state = string_key(file, *t, path, "state", "homo");
+      L.where = key_location(file, *t, path, "state");
       const std::string spin = string_key(file, *t, path, "spin", "up");
       if (spin != "up" && spin != "down") throw InputError(location(file, *t->get("spin"), path + ".spin"), "spin must be up or down");
       L.spin = spin == "up" ? 0 : 1;
@@ -456,6 +470,9 @@ GradParsed parse_grad_root(const toml::table& root, const std::string& file, con
     g.verify_floor = number_key(file, *t, "grad", "verify_floor", g.verify_floor);
     g.verify_step = number_key(file, *t, "grad", "verify_step", g.verify_step);
     g.options.response.krylov_tolerance = number_key(file, *t, "grad", "krylov_tolerance", g.options.response.krylov_tolerance);
+    if (!(g.options.response.krylov_tolerance > 0 && g.options.response.krylov_tolerance < 1))
+      throw InputError(key_location(file, *t, "grad", "krylov_tolerance"),
+                       "must be in (0, 1) (a relative residual of the linear-response solves)");
     const std::string chi0 = string_key(file, *t, "grad", "chi0", "auto");
     if (chi0 == "sum_over_states")
       g.options.response.chi0 = ResponseOptions::Chi0Method::SumOverStates;
@@ -474,7 +491,7 @@ GradParsed parse_grad_root(const toml::table& root, const std::string& file, con
   return parsed;
 }
 
-void check_parameter_bounds(const GradParsed& parsed, const std::string& file) {
+void check_parameter_bounds(const GradParsed& parsed, const std::string& file, bool strictly_inside) {
   const GradInput& g = parsed.input;
   const Eigen::VectorXd v = parameter_values(g.base.systems, g.parameters);
   for (std::size_t i = 0; i < g.parameters.size(); ++i) {
@@ -490,6 +507,11 @@ void check_parameter_bounds(const GradParsed& parsed, const std::string& file) {
                   p.name.c_str(), p.lower, p.upper);
     if (v(i) < p.lower) throw InputError(where("lower"), buf);
     if (v(i) > p.upper) throw InputError(where("upper"), buf);
+    if (strictly_inside && (v(i) == p.lower || v(i) == p.upper))
+      throw InputError(where(v(i) == p.lower ? "lower" : "upper"),
+                       "parameter '" + p.name +
+                           "' starts on one of its bounds; L-BFGS treats bounds by a reparametrization that needs a "
+                           "start strictly inside them (move the initial value, or use levenberg_marquardt)");
   }
 }
 

@@ -38,13 +38,17 @@ void apply_fit_start_values(GradParsed& parsed, const std::string& file);
 
 /// InputError when a parameter's current value lies outside [lower, upper] or lower >= upper,
 /// placed at the block's lower/upper key.
-void check_parameter_bounds(const GradParsed& parsed, const std::string& file);
+/// `strictly_inside`: a start on a finite bound is refused too (L-BFGS reparametrizes bounds
+/// and cannot start on one).
+void check_parameter_bounds(const GradParsed& parsed, const std::string& file, bool strictly_inside = false);
 
 /// A density table (x or r in bohr, density) read from CSV: a header line names the columns
 /// (the density column is the first named n, density, n_per_bohr or n_per_bohr3; otherwise the
 /// second column), '#' comments. Interpolated onto the system's mesh by a natural cubic
 /// spline, zero outside; a warning is added when the table stops where the density is not
 /// negligible and the mesh extends further.
-std::vector<double> density_on_mesh(const std::string& path, const SystemSpec& system, std::vector<std::string>& warnings);
+/// `density`: refuse negative values (beyond rounding) and a table that is nowhere positive.
+std::vector<double> density_on_mesh(const std::string& path, const SystemSpec& system, std::vector<std::string>& warnings,
+                                    bool density = false);
 
 }  // namespace stillpoint::detail

@@ -13,6 +13,10 @@ namespace stillpoint {
 
 namespace {
 
+InputError located(const SourceLocation& where, const std::string& what) {
+  return where.file.empty() ? InputError(what) : InputError(where, what);
+}
+
 bool acts_on(const ParameterRef& p, int system) { return p.system < 0 || p.system == system; }
 
 double& field_ref(SystemSpec& s, const ParameterRef& p) {
@@ -26,12 +30,13 @@ double& field_ref(SystemSpec& s, const ParameterRef& p) {
     case K::Gaussian:
     case K::Harmonic: {
       if (p.index < 0 || p.index >= static_cast<int>(s.line.potentials.size()))
-        throw InputError("parameter '" + p.name + "': system '" + s.name + "' has no potential " + std::to_string(p.index));
+        throw located(p.where, "parameter '" + p.name + "': system '" + s.name + "' has no potential " + std::to_string(p.index) +
+                       " (it has " + std::to_string(s.line.potentials.size()) + ")");
       ExternalTerm& t = s.line.potentials[p.index];
       const bool gauss = t.kind == ExternalTerm::Kind::Gaussian;
       if ((p.kind == K::Gaussian) != gauss || t.kind == ExternalTerm::Kind::Table)
-        throw InputError("parameter '" + p.name + "': potential " + std::to_string(p.index) + " of '" + s.name +
-                         "' is not of that kind");
+        throw located(p.where, "parameter '" + p.name + "': potential " + std::to_string(p.index) + " of '" + s.name +
+                                   "' is not of that kind");
       if (p.field == "depth" && gauss) return t.depth;
       if (p.field == "width" && gauss) return t.width;
       if (p.field == "omega" && !gauss) return t.omega;
@@ -40,7 +45,7 @@ double& field_ref(SystemSpec& s, const ParameterRef& p) {
     }
     case K::Nucleus: {
       if (p.index < 0 || p.index >= static_cast<int>(s.line.nuclei.size()))
-        throw InputError("parameter '" + p.name + "': system '" + s.name + "' has no nucleus " + std::to_string(p.index));
+        throw located(p.where, "parameter '" + p.name + "': system '" + s.name + "' has no nucleus " + std::to_string(p.index));
       Nucleus1d& n = s.line.nuclei[p.index];
       if (p.field == "charge") return n.charge;
       if (p.field == "position") return n.position;
@@ -182,7 +187,7 @@ LevelRef find_level(const KsProblem& P, const KsSolution& S, const LossTerm& t) 
       if ((any_spin || lv.spin == t.spin) && lv.label == t.state) best = {lv.channel, lv.index, lv.energy};
   }
   if (best.channel < 0)
-    throw InputError("loss term '" + t.name + "': no state '" + t.state + "' (spin " + std::to_string(t.spin) +
+    throw located(t.where, "loss term '" + t.name + "': no state '" + t.state + "' (spin " + std::to_string(t.spin) +
                      ") in system '" + P.spec().name + "'");
   return best;
 }

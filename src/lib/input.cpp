@@ -10,6 +10,7 @@
 #include <climits>
 #include <cmath>
 #include <filesystem>
+#include <iomanip>
 #include <limits>
 #include <map>
 #include <sstream>
@@ -31,7 +32,13 @@ constexpr double kBoxMargin = 4.0;
 struct Ctx {
   std::string file;
   fs::path dir;
+  GridUse use = GridUse::Banded;  // what the caller will do with the grids, for the size guard
 };
+
+// Beyond these the geometry itself is absurd: squares of positions overflow long before any
+// grid could resolve them (docs/input.md).
+constexpr double kMaxHalfWidth = 1e5;
+constexpr double kMaxRadius = 1e4;
 
 std::string num(double v) { return detail::format_number(v, 6); }
 
@@ -145,6 +152,47 @@ struct GridInput {
   }
 };
 
+// Largest node count whose estimated memory stays under the limit, by bisection on the
+// (monotonic) estimate.
+double max_nodes(const MeshSpec& spec, Geometry g, GridUse use) {
+  double lo = 1.0, hi = 1e12;
+  for (int it = 0; it < 200; ++it) {
+    const double mid = std::sqrt(lo * hi);
+    MeshSpec probe = spec;
+    if (g == Geometry::Line) {
+      probe.element_size = 2.0 * spec.half_width * spec.degree / std::max(mid - 1.0, 1.0);
+    } else {
+      probe.elements = static_cast<int>(std::min(2e9, std::max(2.0, (mid - 1.0) / spec.degree)));
+    }
+    (grid_cost(probe, g, use).bytes <= kMaxGridBytes ? lo : hi) = mid;
+  }
+  return lo;
+}
+
+// Refuses a grid before anything is sized by it, with the estimate and the key to change.
+void check_grid_size(const Ctx& c, const GridInput& gi, Geometry g, const std::string& sys_path) {
+  const MeshSpec& s = gi.spec;
+  const GridCost cost = grid_cost(s, g, c.use);
+  if (cost.nodes < 2e9 && cost.bytes <= kMaxGridBytes) return;
+  const bool line = g == Geometry::Line;
+  const char* key = line ? (gi.table && gi.table->get("half_width") && !gi.table->get("element_size") ? "half_width" : "element_size")
+                         : "elements";
+  const SourceLocation where = gi.table && gi.table->get(key) ? loc(c, *gi.table->get(key), sys_path + ".grid." + key)
+                               : gi.node                      ? loc(c, *gi.node, sys_path + ".grid")
+                                                              : SourceLocation{c.file, 0, 0, sys_path + ".grid"};
+  const double nmax = max_nodes(s, g, c.use);
+  std::ostringstream m;
+  m << "this grid is too large: " << std::setprecision(3) << cost.elements << " elements of degree " << s.degree << ", "
+    << cost.nodes << " nodes, would need about " << format_bytes(cost.bytes) << " of memory (limit "
+    << format_bytes(kMaxGridBytes) << ") and roughly " << format_seconds(cost.seconds) << "; ";
+  if (line)
+    m << "use element_size >= " << num(2.0 * s.half_width * s.degree / (nmax - 1.0)) << " bohr or a smaller half_width";
+  else
+    m << "use elements <= " << static_cast<long long>((nmax - 1.0) / s.degree) << " or a lower degree";
+  if (c.use != GridUse::Banded) m << " (this command stores dense matrices of size nodes x nodes)";
+  throw InputError(where, m.str());
+}
+
 MeshSpec preset_at(Geometry g, const std::string& name, const SourceLocation& where) {
   try {
     return grid_preset(g, name);
@@ -195,12 +243,19 @@ GridInput read_grid(const Ctx& c, const toml::table& system, Geometry g, const s
     if (s.elements < 2) throw InputError(loc_in(c, *t, path, "elements"), "a radial grid needs at least 2 elements");
     if (!(s.first_element > 0)) throw InputError(loc_in(c, *t, path, "first_element"), "must be positive (bohr)");
     if (!(s.r_max > 0)) throw InputError(loc_in(c, *t, path, "r_max"), "must be positive (bohr)");
+    if (s.r_max > kMaxRadius)
+      throw InputError(loc_in(c, *t, path, "r_max"), "r_max = " + num(s.r_max) + " bohr is beyond the limit of " +
+                                                         num(kMaxRadius) + " bohr; bound states of atoms decay well within it");
   } else {
     s.element_size = get_number(c, *t, path, "element_size", s.element_size);
     s.half_width = get_number(c, *t, path, "half_width", s.half_width);
     if (!(s.element_size > 0)) throw InputError(loc_in(c, *t, path, "element_size"), "must be positive (bohr)");
     if (!(s.half_width > 0)) throw InputError(loc_in(c, *t, path, "half_width"), "must be positive (bohr)");
+    if (s.half_width > kMaxHalfWidth)
+      throw InputError(loc_in(c, *t, path, "half_width"),
+                       "half_width = " + num(s.half_width) + " bohr is beyond the limit of " + num(kMaxHalfWidth) + " bohr");
   }
+  check_grid_size(c, gi, g, sys_path);
   return gi;
 }
 
@@ -372,6 +427,32 @@ void read_atom(const Ctx& c, const toml::table& t, const std::string& path, Syst
                          " elements starting at " + num(h0) + " bohr; raise r_max or lower elements");
 }
 
+// A length the potential defines, which the node spacing must resolve.
+struct LengthScale {
+  double length;     // bohr
+  double per_node;   // the node spacing may be at most per_node * length
+  SourceLocation at;  // the key that defines it
+  std::string what;
+};
+
+// Largest node spacing, per harmonic length, at which the lowest level omega/2 of a harmonic
+// well is still exact to 1e-7 relative (measured: at most 5e-8 at these limits for every
+// degree, tests/guards_test.cpp). Low degrees converge more slowly, so they need more nodes.
+double resolve_per_node(int degree) {
+  switch (degree) {
+    case 2:
+      return 0.035;
+    case 3:
+      return 0.1;
+    case 4:
+      return 0.175;
+    case 5:
+      return 0.2;
+    default:
+      return 0.25;
+  }
+}
+
 void read_line(const Ctx& c, const toml::table& t, const std::string& path, SystemSpec& s, const GridInput& grid) {
   LineSystem& ls = s.line;
   ls.electron_softening = get_number(c, t, path, "electron_softening", ls.electron_softening);
@@ -411,6 +492,40 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
       ls.nuclei.push_back(nuc);
     }
   }
+  {
+    // Before any list of occupations is built: every state needs its own grid unknown.
+    const double ne = s.electron_count();
+    const double states = std::ceil(ne / (s.spin_polarized ? 1.0 : 2.0) - 1e-9);
+    const double unknowns = grid_cost(grid.spec, Geometry::Line, GridUse::Banded).nodes - 2.0;
+    if (ne > 0 && states >= unknowns) {
+      std::size_t big = 0;
+      for (std::size_t k = 1; k < ls.nuclei.size(); ++k)
+        if (ls.nuclei[k].charge > ls.nuclei[big].charge) big = k;
+      const bool by_charge = ls.nuclei.empty() || (t.contains("charge") && -s.charge > ls.nuclei[big].charge);
+      const SourceLocation at =
+          by_charge ? loc_in(c, t, path, "charge")
+                    : loc_in(c, *t.get("nucleus")->as_array()->get(big)->as_table(), path + ".nucleus[" + std::to_string(big) + "]",
+                             "charge");
+      throw InputError(at, "the system would have " + num(ne) + " electrons in " + num(states) +
+                               " occupied states per spin channel, but the grid has only " + num(unknowns) +
+                               " unknowns; lower the " + (by_charge ? "electron count" : "nuclear charge") +
+                               " or use a larger grid");
+    }
+  }
+  std::vector<LengthScale> scales;
+  for (std::size_t k = 0; k < ls.nuclei.size(); ++k) {
+    // Near its minimum a soft-Coulomb well -q/sqrt(x^2 + a^2) is harmonic with
+    // omega^2 = q/a^3, so its ground state has the width (a^3/q)^(1/4).
+    const Nucleus1d& nuc = ls.nuclei[k];
+    if (nuc.charge > 0) {
+      const std::string np = path + ".nucleus[" + std::to_string(k) + "]";
+      const toml::table& nt = *t.get("nucleus")->as_array()->get(k)->as_table();
+      const double len = std::pow(nuc.softening * nuc.softening * nuc.softening / nuc.charge, 0.25);
+      scales.push_back({len, 0.5, loc_in(c, nt, np, "charge"),
+                        "the width (softening^3/charge)^(1/4) = " + num(len) + " bohr of the well of nucleus " +
+                            std::to_string(k)});
+    }
+  }
   if (const toml::node* pn = t.get("potential")) {
     const toml::array* arr = pn->as_array();
     if (!arr) throw InputError(loc(c, *pn, path + ".potential"), "expected [[system.potential]] tables");
@@ -427,6 +542,11 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
         term.kind = ExternalTerm::Kind::Harmonic;
         term.omega = get_number(c, *pt, pp, "omega", term.omega);
         term.center = get_number(c, *pt, pp, "center", 0.0);
+        if (term.omega != 0) {
+          const double len = 1.0 / std::sqrt(std::abs(term.omega));
+          scales.push_back({len, resolve_per_node(grid.spec.degree), loc_in(c, *pt, pp, "omega"),
+                            "the harmonic length 1/sqrt(omega) = " + num(len) + " bohr"});
+        }
       } else if (k == "gaussian") {
         check_keys(c, *pt, pp, {"kind", "depth", "center", "width"});
         term.kind = ExternalTerm::Kind::Gaussian;
@@ -434,6 +554,14 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
         term.center = get_number(c, *pt, pp, "center", 0.0);
         term.width = get_number(c, *pt, pp, "width", term.width);
         if (!(term.width > 0)) throw InputError(loc_in(c, *pt, pp, "width"), "must be positive (bohr)");
+        scales.push_back({term.width, resolve_per_node(grid.spec.degree), loc_in(c, *pt, pp, "width"),
+                          "the Gaussian width = " + num(term.width) + " bohr"});
+        if (term.depth > 0) {
+          // A deep well is harmonic at its bottom with omega^2 = depth/width^2.
+          const double len = std::sqrt(term.width) / std::pow(term.depth, 0.25);
+          scales.push_back({len, resolve_per_node(grid.spec.degree), loc_in(c, *pt, pp, "depth"),
+                            "the width sqrt(width)/depth^(1/4) = " + num(len) + " bohr of the Gaussian well"});
+        }
       } else if (k == "table") {
         check_keys(c, *pt, pp, {"kind", "file"});
         const std::string f = detail::string_key(c.file, *pt, pp, "file", "");
@@ -445,6 +573,13 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
         } catch (const InputError& err) {
           rethrow_at(loc_in(c, *pt, pp, "file"), err, "in the potential table: ");
         }
+        // The spline follows the table between its points; the grid must follow the spline.
+        double dmin = std::numeric_limits<double>::infinity();
+        for (std::size_t j = 0; j + 1 < term.table_x.size(); ++j)
+          if (term.table_x[j + 1] > -L && term.table_x[j] < L) dmin = std::min(dmin, term.table_x[j + 1] - term.table_x[j]);
+        if (std::isfinite(dmin))
+          scales.push_back({dmin, 1.0, loc_in(c, *pt, pp, "file"),
+                            "the smallest point spacing " + num(dmin) + " bohr of the potential table"});
       } else {
         const std::string near = k.empty() ? std::string() : nearest_word(k, kinds);
         throw InputError(loc_in(c, *pt, pp, "kind"),
@@ -457,15 +592,25 @@ void read_line(const Ctx& c, const toml::table& t, const std::string& path, Syst
   }
   if (ls.nuclei.empty() && ls.potentials.empty())
     throw InputError(loc(c, t, path + ".nucleus"), "a line system needs at least one [[system.nucleus]] or [[system.potential]]");
-  // Resolution: nodes must be closer than half the shortest softening length.
+  // Resolution: nodes must be closer than half the shortest softening length, and close
+  // enough for every other length the potential defines. The real element size 2L/E is
+  // used, which is what the mesh will have.
   const MeshSpec& g = grid.spec;
-  const double spacing = g.element_size / g.degree;
+  const double spacing = grid_cost(g, Geometry::Line, GridUse::Banded).element_size / g.degree;
   if (spacing > 0.5 * min_soft)
     throw InputError(grid.where(c, t, path, "element_size"),
                      "the 1D grid is too coarse: node spacing element_size/degree = " + num(spacing) +
                          " bohr exceeds half the smallest softening length (" + min_soft_at.key + " = " + num(min_soft) +
                          " bohr); use element_size <= " + num(0.5 * min_soft * g.degree) +
                          " or a higher degree");
+  // After the softening check, so that its message stays what it was for such inputs.
+  for (const LengthScale& ls_ : scales)
+    if (spacing > ls_.per_node * ls_.length * (1.0 + 1e-9))  // rounding of sizes given at the limit
+      throw InputError(grid.where(c, t, path, "element_size"),
+                       "the 1D grid is too coarse for " + ls_.what + " (" + ls_.at.key + " at line " +
+                           std::to_string(ls_.at.line) + "): node spacing element_size/degree = " + num(spacing) +
+                           " bohr exceeds " + num(ls_.per_node) + " times that length; use element_size <= " +
+                           num(ls_.per_node * ls_.length * g.degree) + " bohr or a higher degree");
   // Electron count and spin split.
   const double ne = s.electron_count();
   const SourceLocation charge_at = loc_in(c, t, path, "charge");
@@ -710,8 +855,9 @@ SolveInput parse_with(const std::string& text, const std::string& name) {
 SolveInput parse_solve_input(const std::string& text, const std::string& name) { return parse_with(text, name); }
 
 namespace detail {
-SolveInput parse_solve_root(const toml::table& root, const std::string& file, const std::vector<std::string>& extra_keys) {
-  Ctx c{file, fs::path(file).parent_path()};
+SolveInput parse_solve_root(const toml::table& root, const std::string& file, const std::vector<std::string>& extra_keys,
+                            GridUse use) {
+  Ctx c{file, fs::path(file).parent_path(), use};
   return parse_table(root, c, extra_keys);
 }
 }  // namespace detail

@@ -3,6 +3,7 @@
 #include <algorithm>
 #include <cmath>
 #include <cstdio>
+#include <filesystem>
 #include <fstream>
 #include <sstream>
 
@@ -27,11 +28,66 @@ SourceLocation key_location(const std::string& file, const toml::table& t, const
 }
 
 std::string read_text_file(const std::string& path, const std::string& cannot_open) {
+  const SourceLocation at{path, 0, 0, ""};
+  std::error_code ec;
+  const auto st = std::filesystem::status(path, ec);
+  if (!ec && std::filesystem::is_directory(st)) throw InputError(at, cannot_open + ": it is a directory, not a file");
+  if (!ec && std::filesystem::exists(st) && !std::filesystem::is_regular_file(st))
+    throw InputError(at, cannot_open + ": not a regular file (devices, pipes and sockets are not read)");
+  if (!ec && std::filesystem::is_regular_file(st)) {
+    const auto size = std::filesystem::file_size(path, ec);
+    if (!ec && size > static_cast<std::uintmax_t>(kMaxInputFileBytes))
+      throw InputError(at, "the file is " + format_number(static_cast<double>(size) / (1 << 20), 4) +
+                               " MB, above the input file limit of " + std::to_string(kMaxInputFileBytes >> 20) + " MB");
+  }
   std::ifstream f(path, std::ios::binary);
-  if (!f) throw InputError(SourceLocation{path, 0, 0, ""}, cannot_open);
+  if (!f) throw InputError(at, cannot_open);
   std::stringstream ss;
   ss << f.rdbuf();
   return ss.str();
+}
+
+std::istringstream open_table(const std::string& path, const std::string& cannot_open, SourceLocation where) {
+  std::string text;
+  try {
+    text = read_text_file(path, cannot_open);
+  } catch (const InputError& e) {
+    if (where.file.empty()) throw;
+    throw InputError(where, e.what());
+  }
+  if (text.rfind("\xEF\xBB\xBF", 0) == 0) text.erase(0, 3);
+  return std::istringstream(text);
+}
+
+std::string printable(const std::string& s, std::size_t max_chars) {
+  std::string out;
+  for (unsigned char ch : s) {
+    if (out.size() >= max_chars) {
+      out += "...";
+      break;
+    }
+    if (ch >= 0x20 && ch < 0x7f) {
+      out += static_cast<char>(ch);
+    } else {
+      char buf[8];
+      std::snprintf(buf, sizeof buf, "\\x%02X", ch);
+      out += buf;
+    }
+  }
+  return out;
+}
+
+std::string preview_list(const std::vector<double>& v, int digits) {
+  std::string out = "[";
+  const std::size_t n = v.size();
+  for (std::size_t i = 0; i < n; ++i) {
+    if (n > 8 && i == 5) {
+      out += ", ... , " + format_number(v.back(), digits) + "] (" + std::to_string(n) + " values)";
+      return out;
+    }
+    out += (i ? ", " : "") + format_number(v[i], digits);
+  }
+  return out + "]";
 }
 
 toml::table parse_toml(const std::string& text, const std::string& name, const std::string& prefix) {

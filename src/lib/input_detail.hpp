@@ -4,16 +4,20 @@
 // way in every file format.
 #include <toml++/toml.h>
 
+#include <sstream>
 #include <string>
 #include <vector>
 
 #include "stillpoint/input.hpp"
+#include "stillpoint/mesh.hpp"
 
 namespace stillpoint::detail {
 
 /// Reads [[system]] and [scf] from an already parsed file; `extra_keys` are further
-/// top-level keys the caller handles itself.
-SolveInput parse_solve_root(const toml::table& root, const std::string& file, const std::vector<std::string>& extra_keys);
+/// top-level keys the caller handles itself; `use` says how the grids will be used, for the
+/// size guard.
+SolveInput parse_solve_root(const toml::table& root, const std::string& file, const std::vector<std::string>& extra_keys,
+                            GridUse use = GridUse::Banded);
 
 /// file:line:column of a node.
 SourceLocation location(const std::string& file, const toml::node& node, const std::string& key);
@@ -22,8 +26,22 @@ SourceLocation location(const std::string& file, const toml::node& node, const s
 /// otherwise the table, so that a missing or defaulted key is still placed.
 SourceLocation key_location(const std::string& file, const toml::table& t, const std::string& path, const std::string& key);
 
-/// The text of an input file; `cannot_open` is the message when it cannot be read.
+/// Largest input file (TOML or CSV) that is read (bytes; docs/input.md).
+inline constexpr long long kMaxInputFileBytes = 64LL << 20;
+
+/// The text of an input file; `cannot_open` is the message when it cannot be read. Refuses
+/// directories, other non-regular files and files above kMaxInputFileBytes.
 std::string read_text_file(const std::string& path, const std::string& cannot_open);
+
+/// A CSV table as a stream, read by read_text_file (same refusals, errors at `where`, which
+/// defaults to the file itself) with a leading UTF-8 byte-order mark removed.
+std::istringstream open_table(const std::string& path, const std::string& cannot_open, SourceLocation where = {});
+
+/// `s` for a message: non-printable bytes as \xNN, at most `max_chars` characters ("...").
+std::string printable(const std::string& s, std::size_t max_chars = 60);
+
+/// A list for a message: all of it when short, else the first few, "...", the last and the count.
+std::string preview_list(const std::vector<double>& v, int digits = 6);
 
 /// Parses TOML text, turning a syntax error into an InputError at its line and column whose
 /// message is `prefix` followed by the parser's description.

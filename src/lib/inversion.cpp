@@ -1,5 +1,6 @@
 // Kohn–Sham inversion (see include/stillpoint/inversion.hpp for the mathematics).
 #include "stillpoint/inversion.hpp"
+#include "input_detail.hpp"
 
 #include <Eigen/Cholesky>
 #include <algorithm>
@@ -194,8 +195,7 @@ TargetDensity target_on_mesh(const std::vector<double>& x, const std::vector<std
 
 TargetDensity read_target_density(const std::string& path, const Mesh& mesh, const std::vector<double>& electrons,
                                   const SourceLocation& where, const std::string& column) {
-  std::ifstream f(path);
-  if (!f) throw InputError(where, "cannot open the target density file '" + path + "'");
+  std::istringstream f = detail::open_table(path, "cannot open the target density file '" + path + "'", where);
   const int ns = static_cast<int>(electrons.size());
   const bool radial = mesh.geometry() == Geometry::Radial;
   std::string line;
@@ -299,14 +299,15 @@ TargetDensity read_target_density(const std::string& path, const Mesh& mesh, con
     const int need = std::max(xcol, *std::max_element(ncol.begin(), ncol.end())) + 1;
     if (static_cast<int>(fields.size()) < need)
       throw at(lineno, "expected at least " + std::to_string(need) + " columns, found " + std::to_string(fields.size()));
-    if (!parse_number(fields[xcol], xv) || !std::isfinite(xv)) throw at(lineno, "position '" + fields[xcol] + "' is not a finite number");
+    if (!parse_number(fields[xcol], xv) || !std::isfinite(xv))
+      throw at(lineno, "position '" + detail::printable(fields[xcol]) + "' is not a finite number");
     if (!x.empty() && !(xv > x.back())) throw at(lineno, "positions must increase strictly from row to row");
     if (radial && xv < 0) throw at(lineno, "radial positions must be non-negative");
     x.push_back(xv);
     for (int s = 0; s < ns; ++s) {
       double nv;
       if (!parse_number(fields[ncol[s]], nv) || !std::isfinite(nv))
-        throw at(lineno, "density '" + fields[ncol[s]] + "' is not a finite number");
+        throw at(lineno, "density '" + detail::printable(fields[ncol[s]]) + "' is not a finite number");
       if (nv < 0) {
         if (nv > -1e-14) nv = 0.0;  // rounding noise of a tail
         else throw at(lineno, "density " + fields[ncol[s]] + " is negative");

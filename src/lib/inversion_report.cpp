@@ -54,7 +54,7 @@ InvertInput parse_root(const toml::table& root, const std::string& file) {
   in.file = file;
   if (const toml::node* sn = root.get("scf"))
     throw InputError(location(file, *sn, "scf"), "invert runs no SCF, so [scf] has no effect; remove it");
-  SolveInput base = detail::parse_solve_root(root, file, {"invert"});
+  SolveInput base = detail::parse_solve_root(root, file, {"invert"}, GridUse::Dense);
   if (base.systems.size() != 1)
     throw InputError(base.system_locations[1], "invert takes exactly one [[system]]; this file has " +
                                                    std::to_string(base.systems.size()) +

@@ -1,5 +1,7 @@
 #include "stillpoint/ks_problem.hpp"
 
+#include "input_detail.hpp"
+
 #include <algorithm>
 #include <cmath>
 #include <numbers>
@@ -30,9 +32,8 @@ std::vector<double> aufbau(double electrons, double capacity) {
 }
 
 std::string describe_occupations(const std::vector<double>& occ) {
-  std::ostringstream s;
-  for (std::size_t i = 0; i < occ.size(); ++i) s << (i ? ", " : "") << occ[i];
-  return s.str();
+  std::string s = detail::preview_list(occ);
+  return s.substr(1, s.find(']') - 1) + s.substr(s.find(']') + 1);
 }
 
 }  // namespace
@@ -161,6 +162,10 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
       if (std::abs(total - electrons_) > 1e-9)
         throw InputError("occupations sum to " + std::to_string(total) + " but the system has " +
                          std::to_string(electrons_) + " electrons");
+    } else if (electrons_ / capacity >= mesh_->num_unknowns()) {
+      // Checked before aufbau builds a list with one entry per state.
+      throw InputError("the system has " + detail::format_number(electrons_, 6) + " electrons but the grid has only " +
+                       std::to_string(mesh_->num_unknowns()) + " unknowns for their states: use a larger grid");
     } else if (!spec.spin_polarized) {
       occ[0] = aufbau(electrons_, 2.0);
     } else {
@@ -184,7 +189,13 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
       Channel c;
       c.spin = s;
       c.occupations = occ[s];
-      c.states = static_cast<int>(occ[s].size()) + std::max(spec.unoccupied_levels, occ[s].empty() ? 1 : 0);
+      // Before the labels are built: unoccupied_levels comes from the input and may be absurd.
+      const long long states = static_cast<long long>(occ[s].size()) + std::max(spec.unoccupied_levels, occ[s].empty() ? 1 : 0);
+      if (states >= mesh_->num_unknowns())
+        throw InputError("the grid has only " + std::to_string(mesh_->num_unknowns()) + " unknowns for " +
+                         std::to_string(states) + " states (occupations " + describe_occupations(occ[s]) +
+                         "): use a larger grid");
+      c.states = static_cast<int>(states);
       for (int i = 0; i < c.states; ++i) c.labels.push_back(std::to_string(i + 1));
       channels_.push_back(c);
     }

@@ -1,4 +1,5 @@
 #include "stillpoint/reference_check.hpp"
+#include "input_detail.hpp"
 
 #include <algorithm>
 #include <cctype>
@@ -88,8 +89,7 @@ std::string quantity_problem(const std::string& q, bool lsd, const std::vector<S
 }  // namespace
 
 std::vector<ReferenceRow> read_reference_table(const std::string& path) {
-  std::ifstream in(path);
-  if (!in) throw InputError(SourceLocation{path, 0, 0, ""}, "cannot open reference table");
+  std::istringstream in = detail::open_table(path, "cannot open reference table");
   static const std::vector<std::string> header = {"Z", "symbol", "charge", "configuration", "approximation", "quantity", "value"};
   std::vector<ReferenceRow> rows;
   std::map<std::tuple<int, int, std::string, std::string>, int> seen;         // (Z, charge, appr, quantity) -> line
@@ -108,7 +108,7 @@ std::vector<ReferenceRow> read_reference_table(const std::string& path) {
         for (const auto& h : header) expect += (expect.empty() ? "" : ",") + h;
         std::size_t i = 0;
         while (i < f.size() && i < header.size() && f[i] == header[i]) ++i;
-        const std::string found = i < f.size() ? "'" + f[i] + "'" : "nothing";
+        const std::string found = i < f.size() ? "'" + detail::printable(f[i]) + "'" : "nothing";
         const std::string wanted = i < header.size() ? "'" + header[i] + "'" : "the end of the line";
         throw InputError(SourceLocation{path, lineno, column_of(line, i), "header"},
                          "expected the header line '" + expect + "'; field " + std::to_string(i + 1) + " holds " +
@@ -132,7 +132,7 @@ std::vector<ReferenceRow> read_reference_table(const std::string& path) {
         if (used != f[i].size() || !std::isfinite(v)) throw std::invalid_argument(header[i]);
         return v;
       } catch (const std::exception&) {
-        throw InputError(where(i), "'" + f[i] + "' is not a number");
+        throw InputError(where(i), "'" + detail::printable(f[i]) + "' is not a number");
       }
     };
     const double z = number(0);
