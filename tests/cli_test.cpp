@@ -457,3 +457,16 @@ charge = 1.0
       << r.err;
   EXPECT_TRUE(s.absent_or_empty("out"));
 }
+
+// An output folder that cannot be created (its parent is a regular file) is an output failure
+// with its own wording and exit status 5, never an input error.
+TEST(CliSolve, UnwritableOutputExits5NotInputError) {
+  Scratch s;
+  s.write("in.toml", "[[system]]\nname = \"He\"\nkind = \"line\"\nxc = [\"lda_x_1d_soft\"]\n[[system.nucleus]]\ncharge = 2.0\n");
+  s.write("plain", "a file, not a folder\n");
+  const CliRun r = s.cli("solve in.toml --output plain/out");
+  EXPECT_EQ(r.rc, 5) << r.err;
+  EXPECT_TRUE(contains(r.err, "output could not be written")) << r.err;
+  EXPECT_FALSE(contains(r.err, "input error")) << r.err;
+  EXPECT_EQ(s.read("plain"), "a file, not a folder\n");
+}

@@ -300,6 +300,18 @@ TEST(FitResume, EqualsUninterrupted) {
     EXPECT_GT(c.replayed_evaluations, 0);
     EXPECT_LT(c.evaluations, a.evaluations);  // nothing recomputed before the interruption point
     expect_same_run(a, c);
+    // Resuming the finished fit replays it and re-evaluates the optimum from the same warm
+    // starts: loss and standard errors are bit for bit those of the uninterrupted run.
+    sp::FitRunOptions again;
+    again.checkpoint = full.checkpoint;
+    again.resume = true;
+    const auto d = sp::run_fit(spec, again);
+    expect_same_run(a, d);
+    EXPECT_EQ(a.uncertainty.computed, d.uncertainty.computed);
+    ASSERT_EQ(a.uncertainty.standard_error.size(), d.uncertainty.standard_error.size());
+    for (int i = 0; i < a.uncertainty.standard_error.size(); ++i)
+      EXPECT_EQ(a.uncertainty.standard_error(i), d.uncertainty.standard_error(i)) << "parameter " << i;  // bitwise
+    EXPECT_EQ(a.uncertainty.residual_variance, d.uncertainty.residual_variance);
     // A changed workflow refuses the checkpoint.
     sp::FitSpec other = spec;
     other.training[0].weight *= 2;

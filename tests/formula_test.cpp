@@ -6,6 +6,7 @@
 #include <cmath>
 
 #include "stillpoint/atom_config.hpp"
+#include "stillpoint/converged_state.hpp"
 #include "stillpoint/formula.hpp"
 #include "stillpoint/gradient.hpp"
 #include "stillpoint/grid_presets.hpp"
@@ -162,4 +163,138 @@ TEST(Formula, GradientThroughScfMatchesFiniteDifferences) {
     const Eigen::VectorXd fd = G.finite_difference_gradient(th, sp::default_fd_steps(params, th, 1e-3), tight);
     for (int k = 0; k < th.size(); ++k) EXPECT_NEAR(r.gradient(k), fd(k), 1e-6 * std::max(1e-3, std::abs(fd(k)))) << names[k];
   }
+}
+
+namespace {
+
+// Energy per volume and its first two density derivatives of a formula at one unpolarized
+// LDA point.
+sp::XcDerivatives at_point(const sp::FormulaSpec& f, double n) {
+  sp::XcSettings xs;
+  xs.formulas.push_back(sp::compile_formula(f));
+  const sp::XcFunctional a = sp::make_functional({"formula:" + f.name}, xs);
+  sp::XcPointData p;
+  p.nspin = 1;
+  p.rho = {n};
+  p.np = 1;
+  sp::XcDerivatives d;
+  a.evaluate(p, 2, d);
+  return d;
+}
+
+std::string repeat(const std::string& s, int k) {
+  std::string r;
+  r.reserve(s.size() * static_cast<std::size_t>(k));
+  for (int i = 0; i < k; ++i) r += s;
+  return r;
+}
+
+}  // namespace
+
+TEST(Formula, LongFlatSumIsAccepted) {
+  // 5000 summed terms (about 25 KB): eps = 5000 n, so e = 5000 n^2 (exact arithmetic).
+  std::string e = "n";
+  e += repeat(" + n", 4999);
+  ASSERT_GT(e.size(), 19000u);
+  const auto d = at_point(formula("sum", e), 0.3);
+  EXPECT_NEAR(d.e[0], 5000 * 0.09, 1e-9);
+  EXPECT_NEAR(d.vrho[0], 2 * 5000 * 0.3, 1e-9);
+  EXPECT_NEAR(d.v2rho2[0], 2 * 5000, 1e-9);
+}
+
+TEST(Formula, DeepParenthesesAndSignChainsAreAccepted) {
+  const int k = 100000;
+  const auto d = at_point(formula("paren", repeat("(", k) + "n" + repeat(")", k)), 0.5);
+  EXPECT_DOUBLE_EQ(d.e[0], 0.25);
+  // An odd number of prefix minus signs negates.
+  const auto m = at_point(formula("minus", repeat("-", k + 1) + "n"), 0.5);
+  EXPECT_DOUBLE_EQ(m.e[0], -0.25);
+  const auto p = at_point(formula("plus", repeat("+-", k) + "n"), 0.5);
+  EXPECT_DOUBLE_EQ(p.e[0], 0.25);
+}
+
+TEST(Formula, DeepRightNestedChainsAreRefusedWithTheKey) {
+  for (const std::string& e : {repeat("n^", 100000) + "n", repeat("n*(", 5000) + "n" + repeat(")", 5000)}) {
+    try {
+      sp::compile_formula(formula("deep", e));
+      FAIL() << "no error";
+    } catch (const sp::InputError& err) {
+      const std::string w = err.what();
+      EXPECT_NE(w.find("formula.deep.expression"), std::string::npos) << w.substr(0, 300);
+      EXPECT_NE(w.find("1000 unfinished operands"), std::string::npos) << w.substr(0, 300);
+      EXPECT_LT(w.size(), 600u) << "the message must not echo a huge expression";
+    }
+  }
+  // A chain of 900 still fits.
+  EXPECT_NO_THROW(sp::compile_formula(formula("ok", repeat("1^", 900) + "n")));
+}
+
+TEST(Formula, PrecedenceAndAssociativity) {
+  // Conventional rules (from memory): ^ right-associative and tighter than prefix minus;
+  // - and / left-associative.
+  const std::vector<std::pair<std::string, double>> cases = {
+      {"-2^2", -4},        {"2^-3", 0.125},        {"2^3^2", 512},     {"-2^-2", -0.25}, {"10-4-3", 3},
+      {"64/4/2", 8},       {"2*-3", -6},           {"-3*2+1", -5},     {"(1+2)*3", 9},   {"2^-3^2", std::pow(2.0, -9.0)},
+      {"pow(2, 3)", 8},    {"max(1, 2) + min(1, 2)", 3}, {"max(-1, -(2))", -1}, {"exp(0)*cbrt(8)", 2}, {"2^0.5", std::sqrt(2.0)}};
+  for (const auto& [e, v] : cases) {
+    // per_volume = false: e = n * value; at n = 1 the energy density is the value.
+    const auto d = at_point(formula("p", e), 1.0);
+    EXPECT_NEAR(d.e[0], v, 1e-14 * std::abs(v)) << e;
+  }
+  EXPECT_THROW(sp::compile_formula(formula("bad", "max(n)")), sp::InputError);
+  EXPECT_THROW(sp::compile_formula(formula("bad", "exp(n, n)")), sp::InputError);
+  EXPECT_THROW(sp::compile_formula(formula("bad", "(n, n)")), sp::InputError);
+  EXPECT_THROW(sp::compile_formula(formula("bad", "n)")), sp::InputError);
+  EXPECT_THROW(sp::compile_formula(formula("bad", "()")), sp::InputError);
+  EXPECT_THROW(sp::compile_formula(formula("bad", "max(n,")), sp::InputError);
+  EXPECT_THROW(sp::compile_formula(formula("bad", "1e999*n")), sp::InputError);
+}
+
+TEST(Formula, MaxAndMinCarryTheDerivativesOfTheSelectedBranch) {
+  // eps = max(n^2, 0.25): e = n^3 above n = 0.5, 0.25 n below (exact calculus).
+  const auto hi = at_point(formula("g", "max(n^2, 0.25)"), 0.8);
+  EXPECT_NEAR(hi.e[0], 0.512, 1e-15);
+  EXPECT_NEAR(hi.vrho[0], 3 * 0.64, 1e-14);
+  EXPECT_NEAR(hi.v2rho2[0], 6 * 0.8, 1e-14);
+  const auto lo = at_point(formula("g", "max(n^2, 0.25)"), 0.3);
+  EXPECT_NEAR(lo.e[0], 0.075, 1e-15);
+  EXPECT_NEAR(lo.vrho[0], 0.25, 1e-15);
+  EXPECT_NEAR(lo.v2rho2[0], 0.0, 1e-15);
+  const auto mn = at_point(formula("g", "min(n^2, 0.25)"), 0.3);
+  EXPECT_NEAR(mn.vrho[0], 3 * 0.09, 1e-15);
+}
+
+TEST(Formula, NonFiniteValuesAreErrorsNamingFormulaPointAndVariables) {
+  // Each is undefined somewhere on a 1D two-electron atom's density; the last only where n < 0.1
+  // (the density of this atom spans 0 .. about 0.5 per bohr).
+  const std::vector<sp::FormulaSpec> bad = {formula("b1", "a/(n-n)", {"a"}, {1.0}), formula("b2", "log(n-1)"),
+                                             formula("b3", "sqrt(-a)", {"a"}, {1.0}),
+                                             formula("b4", "-0.05*sqrt(n - 0.1)")};
+  for (const auto& f : bad) {
+    sp::SystemSpec s;
+    s.geometry = sp::Geometry::Line;
+    s.line.nuclei = {{2.0, 0.0, 1.0}};
+    s.grid = sp::grid_preset(sp::Geometry::Line, "coarse");
+    s.xc = {"lda_x_1d_soft", "formula:" + f.name};
+    s.formulas = {f};
+    try {
+      sp::ConvergedState st(s);
+      FAIL() << f.expression << ": no error";
+    } catch (const sp::NumericalError& e) {
+      const std::string w = e.what();
+      EXPECT_NE(w.find("formula:" + f.name), std::string::npos) << w;
+      EXPECT_NE(w.find(" at x = "), std::string::npos) << w;
+      EXPECT_NE(w.find(" bohr"), std::string::npos) << w;
+      EXPECT_NE(w.find("where n = "), std::string::npos) << w;
+      EXPECT_NE(w.find("rs = "), std::string::npos) << w;
+    }
+  }
+  // The guarded form of the last one solves.
+  sp::SystemSpec s;
+  s.geometry = sp::Geometry::Line;
+  s.line.nuclei = {{2.0, 0.0, 1.0}};
+  s.grid = sp::grid_preset(sp::Geometry::Line, "coarse");
+  s.xc = {"lda_x_1d_soft", "formula:g"};
+  s.formulas = {formula("g", "-0.05*sqrt(max(n - 0.1, 1e-12))")};
+  EXPECT_NO_THROW(sp::ConvergedState st(s));
 }

@@ -5,6 +5,8 @@
 //   InputError      the user's file or options are wrong; fix the input (CLI exit code 2)
 //   NumericalError  the input was valid but a computation failed, e.g. an SCF that did not
 //                   converge; change tolerances, mixing or grid (CLI exit code 3)
+//   OutputError     the results could not be written (disk full, unwritable folder); the
+//                   input and the computation were fine (CLI exit code 5)
 //   std::logic_error  a broken invariant inside stillpoint: a bug, please report it.
 #include <stdexcept>
 #include <string>
@@ -42,6 +44,17 @@ class NumericalError : public std::runtime_error {
 
  private:
   std::vector<std::string> details_;
+};
+
+/// An output file could not be written; `path` names it. Never an input error: the run was
+/// valid and may be repeated as it is once there is room.
+class OutputError : public std::runtime_error {
+ public:
+  OutputError(const std::string& path, const std::string& what);
+  const std::string& path() const noexcept { return path_; }
+
+ private:
+  std::string path_;
 };
 
 /// Returns the candidate closest to `word` by edit distance (empty if none is close).

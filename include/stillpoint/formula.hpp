@@ -1,11 +1,12 @@
 #pragma once
 // User-written functionals: an energy density typed into the input file as a plain infix
-// expression, parsed once into a tree and evaluated with jets, so the potential, kernel and
+// expression, parsed once into postfix code and evaluated with jets, so the potential, kernel and
 // parameter derivatives are exact. Evaluation can only do arithmetic on the listed variables
 // and parameters (no loops, calls out, or state): it is sandboxed by construction.
 //
 // Syntax: numbers (1, 0.5, 2e-3), + - * / ^ (right-associative power), unary minus,
-// parentheses, functions exp log sqrt cbrt sin cos tanh atan asinh and pow(a, b), the constant
+// parentheses, functions exp log sqrt cbrt sin cos tanh atan asinh, pow(a, b), max(a, b) and
+// min(a, b) (derivatives of the selected argument), the constant
 // pi, the variables below, and the formula's named parameters.
 // Variables: n (total density), n_up, n_down, zeta (spin polarization), rs (Wigner–Seitz
 // radius: (3/(4 pi n))^(1/3) in 3D, 1/(2n) on the line), sigma (|grad n|^2), s2 and s (reduced

@@ -12,6 +12,9 @@
 #include <string>
 #include <vector>
 
+#include <Eigen/Core>
+
+#include "stillpoint/errors.hpp"
 #include "stillpoint/jet.hpp"
 #include "stillpoint/xc_functional.hpp"
 
@@ -29,6 +32,26 @@ class ModelFamily {
   /// Energy per volume (hartree / bohr^d).
   virtual Jet energy(const Jet& n_up, const Jet& n_down, const Jet& s_uu, const Jet& s_ud, const Jet& s_dd,
                      const std::vector<Jet>& params, const XcSettings& settings) const = 0;
+  /// How the family is named in xc lists ("model:<name>", "formula:<name>").
+  virtual std::string label() const { return "model:" + name(); }
+  /// The family's input variables at a point ("n_up = ..., n_down = ..."), for error messages.
+  virtual std::string describe_point(double n_up, double n_down, double s_uu, double s_ud, double s_dd,
+                                     const XcSettings& settings) const;
+};
+
+/// A model or formula term whose energy density or one of its derivatives is not finite at a
+/// point above the density threshold. The term cannot know where the point lies, so the
+/// mesh-aware caller adds the coordinate (with_position); `rho` identifies the point.
+class NonFiniteModelError : public NumericalError {
+ public:
+  NonFiniteModelError(const std::string& head, const std::string& tail, std::vector<double> rho);
+  const std::vector<double>& rho() const noexcept { return rho_; }
+  /// The same error with "at x = ... bohr" (or r) of the first mesh node carrying `rho`.
+  NonFiniteModelError with_position(const class Mesh& mesh, const std::vector<Eigen::VectorXd>& density) const;
+
+ private:
+  std::string head_, tail_;
+  std::vector<double> rho_;
 };
 
 using ModelFactory = std::function<std::unique_ptr<ModelFamily>()>;

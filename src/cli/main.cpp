@@ -4,6 +4,7 @@
 //   exit 2  unusable input (file, key, value)
 //   exit 3  numerical failure (for example an SCF that did not converge)
 //   exit 4  internal error (a bug in stillpoint)
+//   exit 5  output could not be written (disk full, unwritable folder)
 //
 // Output files are all-or-nothing per run: `solve` first reads and discretizes every system
 // (so input errors in any system stop the run before any SCF), then solves all of them, and
@@ -184,7 +185,7 @@ int main(int argc, char** argv) {
   openblas_set_num_threads(1);
   CLI::App app{"stillpoint: Kohn-Sham solutions, exact gradients and fits for density-functional development.\n"
                "All quantities in hartree atomic units (energies in hartree, lengths in bohr).\n"
-               "Exit status: 0 ok, 1 values outside tolerance, 2 input error, 3 numerical failure, 4 internal error."};
+               "Exit status: 0 ok, 1 values outside tolerance, 2 input error, 3 numerical failure, 4 internal error, 5 output could not be written."};
   app.require_subcommand(1);
   app.set_version_flag("--version", "stillpoint 0.1.0");
 
@@ -291,6 +292,9 @@ int main(int argc, char** argv) {
     std::cerr << "stillpoint: numerical failure: " << e.what() << "\n";
     for (const auto& d : e.details()) std::cerr << d << "\n";
     return 3;
+  } catch (const sp::OutputError& e) {
+    std::cerr << "stillpoint: output could not be written: " << e.what() << "\n";
+    return 5;
   } catch (const std::exception& e) {
     std::cerr << "stillpoint: internal error (please report): " << e.what() << "\n";
     return 4;

@@ -24,6 +24,9 @@ InputError::InputError(const std::string& what) : std::runtime_error(what) {}
 NumericalError::NumericalError(const std::string& what, std::vector<std::string> details)
     : std::runtime_error(what), details_(std::move(details)) {}
 
+OutputError::OutputError(const std::string& path, const std::string& what)
+    : std::runtime_error(std::string(path).append(": ").append(what)), path_(path) {}
+
 namespace {
 std::size_t edit_distance(const std::string& a, const std::string& b) {
   std::vector<std::size_t> prev(b.size() + 1), cur(b.size() + 1);

@@ -7,8 +7,11 @@
 // exactly the same path, restores the warm starts, and continues: the result equals that of
 // an uninterrupted run.
 //
-// File layout (little-endian, the machine's IEEE doubles): "STILLPOINT-FIT-CHECKPOINT 1\n",
-// then u64 fingerprint, f64 seconds, u8 complete, and length-prefixed sections.
+// File layout (little-endian, the machine's IEEE doubles): "STILLPOINT-FIT-CHECKPOINT 2\n",
+// then records, each followed by the CRC-32 (IEEE polynomial) of its bytes: the header
+// (u64 fingerprint, f64 seconds, u8 complete, u64 log size), one per log entry, the iteration
+// records and rejected points, and per state list its size and one per state. A record
+// whose checksum fails is reported as a damaged checkpoint with its number.
 #include <Eigen/Dense>
 #include <cstdint>
 #include <string>
@@ -41,7 +44,8 @@ struct FitCheckpointState {
 };
 
 std::string serialize_checkpoint(const FitCheckpointState& state);
-/// InputError naming the file when it is not a checkpoint or is truncated.
+/// InputError naming the file when it is not a checkpoint, is truncated, or a record fails
+/// its checksum ("damaged checkpoint: record N ...").
 FitCheckpointState parse_checkpoint(const std::string& bytes, const std::string& file);
 
 /// Hash of everything that determines the optimizer's path (systems, parameters and start,

@@ -7,6 +7,7 @@
 
 #include "fit_threads.hpp"
 #include "stillpoint/errors.hpp"
+#include "stillpoint/model_functional.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
 
 namespace stillpoint {
@@ -82,6 +83,16 @@ double& field_ref(SystemSpec& s, const ParameterRef& p) {
   throw std::logic_error("unhandled parameter kind");
 }
 
+// Runs f, placing a non-finite model value at its mesh coordinate.
+template <class F>
+auto located(const Mesh& m, const KsSolution& S, F f) {
+  try {
+    return f();
+  } catch (const NonFiniteModelError& e) {
+    throw e.with_position(m, S.density);
+  }
+}
+
 // dV/dtheta_p at fixed density, per spin at every node.
 std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& P, const KsSolution& S, const ParameterRef& p) {
   using K = ParameterRef::Kind;
@@ -94,7 +105,7 @@ std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& P, const KsSol
       // The potential of the one term alone, with unit weight: d v_xc / d w_t.
       XcFunctional term_only = P.xc();
       for (std::size_t i = 0; i < term_only.size(); ++i) term_only.set_weight(i, static_cast<int>(i) == p.index ? 1.0 : 0.0);
-      return evaluate_xc(m, term_only, S.density, P.density_threshold()).potential;
+      return located(m, S, [&] { return evaluate_xc(m, term_only, S.density, P.density_threshold()).potential; });
     }
     case K::Gaussian: {
       const ExternalTerm& t = s.line.potentials[p.index];
@@ -129,7 +140,9 @@ std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& P, const KsSol
       v(p.index) = 1.0;
       break;
     case K::XcParameter:
-      return xc_parameter_derivative(m, P.xc(), p.index, p.sub, S.density, P.density_threshold()).potential;
+      return located(m, S, [&] {
+        return xc_parameter_derivative(m, P.xc(), p.index, p.sub, S.density, P.density_threshold()).potential;
+      });
   }
   return std::vector<Eigen::VectorXd>(P.nspin(), v);
 }
@@ -154,10 +167,12 @@ double explicit_energy_derivative(const KsProblem& P, const KsSolution& S, const
   if (p.kind == ParameterRef::Kind::XcWeight) {
     XcFunctional term_only = P.xc();
     for (std::size_t i = 0; i < term_only.size(); ++i) term_only.set_weight(i, static_cast<int>(i) == p.index ? 1.0 : 0.0);
-    return xc_energy(P.mesh(), term_only, S.density, P.density_threshold());
+    return located(P.mesh(), S, [&] { return xc_energy(P.mesh(), term_only, S.density, P.density_threshold()); });
   }
   if (p.kind == ParameterRef::Kind::XcParameter)
-    return xc_parameter_derivative(P.mesh(), P.xc(), p.index, p.sub, S.density, P.density_threshold()).energy;
+    return located(P.mesh(), S, [&] {
+      return xc_parameter_derivative(P.mesh(), P.xc(), p.index, p.sub, S.density, P.density_threshold()).energy;
+    });
   const auto dv = parameter_potential(P, S, p);
   return P.mesh().density_weight().dot(dv[0].cwiseProduct(S.total_density())) + nuclear_repulsion_derivative(P.spec(), p);
 }

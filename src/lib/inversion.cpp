@@ -16,6 +16,7 @@
 #include "stillpoint/hartree.hpp"
 #include "stillpoint/kinetic.hpp"
 #include "stillpoint/ks_problem.hpp"
+#include "stillpoint/model_functional.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
 #include "stillpoint/xc_terms.hpp"
 #include "interpolation.hpp"
@@ -825,7 +826,12 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
       for (std::size_t i = 0; i < xc.size() && i < system.xc_weights.size(); ++i)
         xc.set_weight(i, xc.weight(i) * system.xc_weights[i]);
     if (!xc.empty()) {
-      const XcOnMesh model = evaluate_xc(m, xc, nt, system.density_threshold);
+      XcOnMesh model;
+      try {
+        model = evaluate_xc(m, xc, nt, system.density_threshold);
+      } catch (const NonFiniteModelError& e) {
+        throw e.with_position(m, nt);
+      }
       R.v_xc_model = model.potential;
       for (auto& v : R.v_xc_model)
         if (radial) v(0) = v(1);

@@ -4,9 +4,37 @@
 #include <map>
 #include <mutex>
 
+#include <sstream>
+
 #include "stillpoint/errors.hpp"
+#include "stillpoint/mesh.hpp"
 
 namespace stillpoint {
+
+std::string ModelFamily::describe_point(double nu, double nd, double suu, double sud, double sdd,
+                                        const XcSettings&) const {
+  std::ostringstream m;
+  m.precision(17);
+  m << "n_up = " << nu << ", n_down = " << nd;
+  if (needs_gradient()) m << ", sigma_uu = " << suu << ", sigma_ud = " << sud << ", sigma_dd = " << sdd;
+  return m.str();
+}
+
+NonFiniteModelError::NonFiniteModelError(const std::string& head, const std::string& tail, std::vector<double> rho)
+    : NumericalError(head + " " + tail), head_(head), tail_(tail), rho_(std::move(rho)) {}
+
+NonFiniteModelError NonFiniteModelError::with_position(const Mesh& mesh, const std::vector<Eigen::VectorXd>& n) const {
+  for (int k = 0; k < mesh.num_nodes(); ++k) {
+    bool same = n.size() == rho_.size();
+    for (std::size_t s = 0; same && s < n.size(); ++s) same = std::max(n[s](k), 0.0) == rho_[s];
+    if (!same) continue;
+    std::ostringstream m;
+    m.precision(10);
+    m << head_ << " at " << (mesh.geometry() == Geometry::Radial ? "r" : "x") << " = " << mesh.x()(k) << " bohr,";
+    return NonFiniteModelError(m.str(), tail_, rho_);
+  }
+  return *this;
+}
 
 namespace {
 
@@ -67,8 +95,8 @@ class ModelTerm final : public XcTerm {
     const int nv = ns == 1 ? (gga ? 2 : 1) : (gga ? 5 : 2);
     for (std::size_t i = 0; i < in.np; ++i) {
       const Jet e = evaluate(in, i, nv, order, -1);
-      if (!std::isfinite(e.value())) continue;
-      out.e[i] += w * e.value();
+      const auto fin = [&](double v) { return finite(v, in, i); };
+      out.e[i] += w * fin(e.value());
       if (ns == 1) {
         out.vrho[i] += w * fin(e.d(0));
         if (gga) out.vsigma[i] += w * fin(e.d(1));
@@ -110,7 +138,8 @@ class ModelTerm final : public XcTerm {
     dvsigma.assign(gga ? in.np * nsig : 0, 0.0);
     for (std::size_t i = 0; i < in.np; ++i) {
       const Jet e = evaluate(in, i, nv + 1, 2, p);
-      if (!std::isfinite(e.value())) continue;
+      const auto fin = [&](double v) { return finite(v, in, i); };
+      fin(e.value());
       de[i] = fin(e.d(nv));
       for (int s = 0; s < ns; ++s) dvrho[ns * i + s] = fin(e.d2(s, nv));
       if (gga)
@@ -119,7 +148,27 @@ class ModelTerm final : public XcTerm {
   }
 
  private:
-  static double fin(double v) { return std::isfinite(v) ? v : 0.0; }
+  // A non-finite value above the density threshold is an error naming the term, the point
+  // and its variables: dropping it would silently change the functional.
+  double finite(double v, const XcPointData& in, std::size_t i) const {
+    if (std::isfinite(v)) return v;
+    const double total = in.nspin == 1 ? in.rho[i] : in.rho[2 * i] + in.rho[2 * i + 1];
+    double nu = 0.5 * total, nd = nu, suu = 0.0, sud = 0.0, sdd = 0.0;
+    if (in.nspin == 2) nu = in.rho[2 * i], nd = in.rho[2 * i + 1];
+    if (family_->needs_gradient() && !in.sigma.empty()) {
+      if (in.nspin == 1)
+        suu = sud = sdd = 0.25 * in.sigma[i];
+      else
+        suu = in.sigma[3 * i], sud = in.sigma[3 * i + 1], sdd = in.sigma[3 * i + 2];
+    }
+    std::vector<double> rho(in.rho.begin() + static_cast<std::ptrdiff_t>(in.nspin * i),
+                            in.rho.begin() + static_cast<std::ptrdiff_t>(in.nspin * (i + 1)));
+    const std::string head = "xc term '" + family_->label() + "' is not finite (energy density or a derivative of it)";
+    std::string tail = "where " + family_->describe_point(nu, nd, suu, sud, sdd, settings_) +
+                       "; guard the expression where it is undefined, e.g. max(x, 1e-12) inside sqrt or log "
+                       "(see \"Guarded formulas\" in docs/input.md)";
+    throw NonFiniteModelError(head, tail, std::move(rho));
+  }
 
   // Jets for the point's inputs (and parameter `active` as the last variable when >= 0).
   // Gradient models are screened below a total density of 1e-12 (libxc's PBE correlation

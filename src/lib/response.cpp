@@ -7,6 +7,7 @@
 
 #include "stillpoint/errors.hpp"
 #include "stillpoint/kinetic.hpp"
+#include "stillpoint/model_functional.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
 
 namespace stillpoint {
@@ -96,7 +97,13 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
     }
     I.ch.push_back(std::move(d));
   }
-  if (!P.xc().empty()) I.kxc = std::make_unique<XcKernel>(m, P.xc(), S.density, P.density_threshold());
+  if (!P.xc().empty()) {
+    try {
+      I.kxc = std::make_unique<XcKernel>(m, P.xc(), S.density, P.density_threshold());
+    } catch (const NonFiniteModelError& e) {
+      throw e.with_position(m, S.density);
+    }
+  }
 }
 
 Response::~Response() = default;

@@ -5,6 +5,7 @@
 #include <sstream>
 
 #include "stillpoint/errors.hpp"
+#include "stillpoint/model_functional.hpp"
 #include "stillpoint/xc_on_mesh.hpp"
 #include "stillpoint/xc_terms.hpp"
 
@@ -23,7 +24,12 @@ MapEvaluation evaluate_ks_map(const KsProblem& P, const std::vector<Eigen::Vecto
   Eigen::VectorXd n_tot = r.density[0];
   for (std::size_t s = 1; s < r.density.size(); ++s) n_tot += r.density[s];
   r.v_h = P.hartree_potential(n_tot);
-  const XcOnMesh xc = evaluate_xc(P.mesh(), P.xc(), r.density, P.density_threshold());
+  XcOnMesh xc;
+  try {
+    xc = evaluate_xc(P.mesh(), P.xc(), r.density, P.density_threshold());
+  } catch (const NonFiniteModelError& e) {
+    throw e.with_position(P.mesh(), r.density);
+  }
   r.v_xc = xc.potential;
   const Eigen::VectorXd& W = P.mesh().density_weight();
   EnergyParts& E = r.energy;
@@ -150,6 +156,10 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     MapEvaluation m;
     try {
       m = evaluate_ks_map(P, v_in, warm);
+    } catch (const NonFiniteModelError& e) {
+      // The functional itself is undefined at a density the SCF reached: no restart helps.
+      throw NumericalError(std::string(e.what()).append(" (SCF iteration ").append(std::to_string(it)).append(")"),
+                           history_lines());
     } catch (const NumericalError& e) {
       if (best_iteration == 0) throw;
       restart(it, std::string("the Kohn-Sham map failed (") + e.what() + ")");
