@@ -25,9 +25,9 @@
 #include <string>
 #include <vector>
 
-#include "stillpoint/exact_two_electron.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/ks_problem.hpp"
+#include "stillpoint/exact/two_electron.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/ks/problem.hpp"
 
 void exact_report();
 

@@ -7,10 +7,10 @@
 #include <cstdio>
 #include <string>
 
-#include "stillpoint/fit.hpp"
-#include "stillpoint/fit_input.hpp"
-#include "stillpoint/fit_report.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/fit/fit.hpp"
+#include "stillpoint/fit/input.hpp"
+#include "stillpoint/fit/report.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 extern "C" void openblas_set_num_threads(int) __attribute__((weak));
 

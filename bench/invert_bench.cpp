@@ -5,11 +5,11 @@
 #include <cstdio>
 #include <string>
 
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/inversion.hpp"
-#include "stillpoint/ks_problem.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/invert/inversion.hpp"
+#include "stillpoint/ks/problem.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 namespace sp = stillpoint;
 

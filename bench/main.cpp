@@ -9,12 +9,12 @@
 #include <string>
 #include <vector>
 
-#include "stillpoint/eigensolver.hpp"
-#include "stillpoint/gradient.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/kinetic.hpp"
-#include "stillpoint/reference_check.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/numerics/eigensolver.hpp"
+#include "stillpoint/response/gradient.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/numerics/kinetic.hpp"
+#include "stillpoint/check/reference_check.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 extern "C" void openblas_set_num_threads(int);
 

@@ -3,8 +3,8 @@
 #include <cmath>
 #include <cstdio>
 
-#include "stillpoint/converged_state.hpp"
-#include "stillpoint/grid_presets.hpp"
+#include "stillpoint/response/converged_state.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
 
 using namespace stillpoint;
 

@@ -1,10 +1,10 @@
 // Smallest use of the library: solve neon in the LDA and print the summary.
 #include <iostream>
 
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/scf.hpp"
-#include "stillpoint/solution_report.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/ks/scf.hpp"
+#include "stillpoint/ks/report.hpp"
 
 int main() {
   using namespace stillpoint;

@@ -1,4 +1,4 @@
-#include "stillpoint/atom_config.hpp"
+#include "stillpoint/ks/atom_config.hpp"
 
 #include <gtest/gtest.h>
 

@@ -10,11 +10,11 @@
 #include <string>
 #include <vector>
 
-#include "stillpoint/errors.hpp"
-#include "stillpoint/input.hpp"
-#include "stillpoint/ks_problem.hpp"
-#include "stillpoint/reference_check.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/ks/input.hpp"
+#include "stillpoint/ks/problem.hpp"
+#include "stillpoint/check/reference_check.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 namespace sp = stillpoint;
 namespace fs = std::filesystem;

@@ -16,11 +16,11 @@
 #include <string>
 
 #include "cli_support.hpp"
-#include "stillpoint/eigensolver.hpp"
-#include "stillpoint/errors.hpp"
-#include "stillpoint/exact_two_electron.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/kinetic.hpp"
+#include "stillpoint/numerics/eigensolver.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/exact/two_electron.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/numerics/kinetic.hpp"
 
 namespace sp = stillpoint;
 namespace fs = std::filesystem;

@@ -8,9 +8,9 @@
 #include <cmath>
 #include <numbers>
 
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/mesh.hpp"
-#include "stillpoint/xc_on_mesh.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/numerics/mesh.hpp"
+#include "stillpoint/xc/on_mesh.hpp"
 
 namespace sp = stillpoint;
 

@@ -3,8 +3,8 @@
 
 #include <string>
 
-#include "../src/lib/fit_checkpoint.hpp"
-#include "stillpoint/errors.hpp"
+#include "../src/fit/checkpoint.hpp"
+#include "stillpoint/common/errors.hpp"
 
 namespace sp = stillpoint;
 

@@ -21,10 +21,10 @@
 #include <nlohmann/json.hpp>
 
 #include "cli_support.hpp"
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/fit.hpp"
-#include "stillpoint/fit_input.hpp"
-#include "stillpoint/grid_presets.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/fit/fit.hpp"
+#include "stillpoint/fit/input.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
 
 namespace sp = stillpoint;
 

@@ -5,11 +5,11 @@
 
 #include <cmath>
 
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/converged_state.hpp"
-#include "stillpoint/formula.hpp"
-#include "stillpoint/gradient.hpp"
-#include "stillpoint/grid_presets.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/response/converged_state.hpp"
+#include "stillpoint/xc/formula.hpp"
+#include "stillpoint/response/gradient.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
 
 namespace sp = stillpoint;
 

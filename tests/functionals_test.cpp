@@ -9,12 +9,12 @@
 #include <fstream>
 #include <iterator>
 
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/errors.hpp"
-#include "stillpoint/functional_survey.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/inversion.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/check/functional_survey.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/invert/inversion.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 namespace sp = stillpoint;
 

@@ -7,10 +7,10 @@
 
 #include <cmath>
 
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/gradient.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/xc_on_mesh.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/response/gradient.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/xc/on_mesh.hpp"
 
 namespace sp = stillpoint;
 

@@ -14,16 +14,16 @@
 #include <vector>
 
 #include "cli_support.hpp"
-#include "stillpoint/errors.hpp"
-#include "stillpoint/exact_two_electron.hpp"
-#include "stillpoint/external_potential.hpp"
-#include "stillpoint/grad_input.hpp"
-#include "stillpoint/input.hpp"
-#include "stillpoint/inversion.hpp"
-#include "stillpoint/ks_problem.hpp"
-#include "stillpoint/mesh.hpp"
-#include "stillpoint/reference_check.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/exact/two_electron.hpp"
+#include "stillpoint/ks/external_potential.hpp"
+#include "stillpoint/response/input.hpp"
+#include "stillpoint/ks/input.hpp"
+#include "stillpoint/invert/inversion.hpp"
+#include "stillpoint/ks/problem.hpp"
+#include "stillpoint/numerics/mesh.hpp"
+#include "stillpoint/check/reference_check.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 namespace sp = stillpoint;
 namespace fs = std::filesystem;

@@ -20,13 +20,13 @@
 #include <random>
 
 #include "cli_support.hpp"
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/exact_two_electron.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/inversion.hpp"
-#include "stillpoint/ks_problem.hpp"
-#include "stillpoint/response.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/exact/two_electron.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/invert/inversion.hpp"
+#include "stillpoint/ks/problem.hpp"
+#include "stillpoint/response/response.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 namespace sp = stillpoint;
 

@@ -5,8 +5,8 @@
 
 #include <cmath>
 
-#include "stillpoint/errors.hpp"
-#include "stillpoint/model_functional.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/xc/model_functional.hpp"
 
 namespace sp = stillpoint;
 

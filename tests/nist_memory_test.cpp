@@ -3,7 +3,7 @@
 // that disagrees). A second line of evidence beside the Mg/Mg+ rows read from the NIST page.
 #include <gtest/gtest.h>
 
-#include "stillpoint/reference_check.hpp"
+#include "stillpoint/check/reference_check.hpp"
 
 namespace sp = stillpoint;
 

@@ -14,12 +14,12 @@
 #include <string>
 #include <vector>
 
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/ks_problem.hpp"
-#include "stillpoint/reference_check.hpp"
-#include "stillpoint/scf.hpp"
-#include "stillpoint/system.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/ks/problem.hpp"
+#include "stillpoint/check/reference_check.hpp"
+#include "stillpoint/ks/scf.hpp"
+#include "stillpoint/ks/system.hpp"
 
 namespace sp = stillpoint;
 

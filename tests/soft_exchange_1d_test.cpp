@@ -1,4 +1,4 @@
-#include "stillpoint/soft_exchange_1d.hpp"
+#include "stillpoint/xc/soft_exchange_1d.hpp"
 
 #include <gtest/gtest.h>
 #include <xc.h>

@@ -24,14 +24,14 @@
 #include <string>
 #include <vector>
 
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/ks_problem.hpp"
-#include "stillpoint/mesh.hpp"
-#include "stillpoint/scf.hpp"
-#include "stillpoint/system.hpp"
-#include "stillpoint/xc_functional.hpp"
-#include "stillpoint/xc_on_mesh.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/ks/problem.hpp"
+#include "stillpoint/numerics/mesh.hpp"
+#include "stillpoint/ks/scf.hpp"
+#include "stillpoint/ks/system.hpp"
+#include "stillpoint/xc/functional.hpp"
+#include "stillpoint/xc/on_mesh.hpp"
 
 namespace sp = stillpoint;
 

@@ -6,11 +6,11 @@
 #include <nlohmann/json.hpp>
 
 #include "cli_support.hpp"
-#include "stillpoint/atom_config.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/ks_problem.hpp"
-#include "stillpoint/xc_on_mesh.hpp"
-#include "stillpoint/xc_terms.hpp"
+#include "stillpoint/ks/atom_config.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/ks/problem.hpp"
+#include "stillpoint/xc/on_mesh.hpp"
+#include "stillpoint/ks/xc_terms.hpp"
 
 namespace sp = stillpoint;
 

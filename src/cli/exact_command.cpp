@@ -9,9 +9,9 @@
 #include <iostream>
 
 #include "commands.hpp"
-#include "stillpoint/atomic_file.hpp"
-#include "stillpoint/errors.hpp"
-#include "stillpoint/exact_two_electron.hpp"
+#include "stillpoint/common/atomic_file.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/exact/two_electron.hpp"
 
 namespace sp = stillpoint;
 

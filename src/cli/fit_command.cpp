@@ -5,11 +5,11 @@
 #include <iostream>
 
 #include "commands.hpp"
-#include "stillpoint/atomic_file.hpp"
-#include "stillpoint/errors.hpp"
-#include "stillpoint/fit.hpp"
-#include "stillpoint/fit_input.hpp"
-#include "stillpoint/fit_report.hpp"
+#include "stillpoint/common/atomic_file.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/fit/fit.hpp"
+#include "stillpoint/fit/input.hpp"
+#include "stillpoint/fit/report.hpp"
 
 namespace sp = stillpoint;
 namespace fs = std::filesystem;

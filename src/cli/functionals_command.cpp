@@ -3,8 +3,8 @@
 #include <iostream>
 
 #include "commands.hpp"
-#include "stillpoint/atomic_file.hpp"
-#include "stillpoint/functional_survey.hpp"
+#include "stillpoint/common/atomic_file.hpp"
+#include "stillpoint/check/functional_survey.hpp"
 
 namespace sp = stillpoint;
 

@@ -8,9 +8,9 @@
 #include <sstream>
 
 #include "commands.hpp"
-#include "stillpoint/atomic_file.hpp"
-#include "stillpoint/grad_input.hpp"
-#include "stillpoint/mesh.hpp"
+#include "stillpoint/common/atomic_file.hpp"
+#include "stillpoint/response/input.hpp"
+#include "stillpoint/numerics/mesh.hpp"
 
 namespace sp = stillpoint;
 

@@ -7,9 +7,9 @@
 #include <iostream>
 
 #include "commands.hpp"
-#include "stillpoint/atomic_file.hpp"
-#include "stillpoint/errors.hpp"
-#include "stillpoint/inversion.hpp"
+#include "stillpoint/common/atomic_file.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/invert/inversion.hpp"
 
 namespace sp = stillpoint;
 namespace fs = std::filesystem;

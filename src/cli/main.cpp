@@ -18,12 +18,12 @@
 #include <iostream>
 
 #include "commands.hpp"
-#include "stillpoint/atomic_file.hpp"
-#include "stillpoint/errors.hpp"
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/input.hpp"
-#include "stillpoint/reference_check.hpp"
-#include "stillpoint/solution_report.hpp"
+#include "stillpoint/common/atomic_file.hpp"
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/ks/input.hpp"
+#include "stillpoint/check/reference_check.hpp"
+#include "stillpoint/ks/report.hpp"
 
 namespace sp = stillpoint;
 namespace fs = std::filesystem;

@@ -3,8 +3,8 @@
 #include <cmath>
 #include <cstdio>
 
-#include "stillpoint/grid_presets.hpp"
-#include "stillpoint/scf.hpp"
+#include "stillpoint/ks/grid_presets.hpp"
+#include "stillpoint/ks/scf.hpp"
 
 int main() {
   using namespace stillpoint;

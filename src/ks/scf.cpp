@@ -1,0 +1,303 @@
+#include "stillpoint/ks/scf.hpp"
+
+#include <cmath>
+#include <cstdio>
+#include <sstream>
+
+#include "stillpoint/common/errors.hpp"
+#include "stillpoint/xc/model_functional.hpp"
+#include "stillpoint/xc/on_mesh.hpp"
+#include "stillpoint/ks/xc_terms.hpp"
+
+namespace stillpoint {
+
+Eigen::VectorXd KsSolution::total_density() const {
+  Eigen::VectorXd n = density[0];
+  for (std::size_t s = 1; s < density.size(); ++s) n += density[s];
+  return n;
+}
+
+MapEvaluation evaluate_ks_map(const KsProblem& P, const std::vector<Eigen::VectorXd>& v_in, std::vector<EigenWarmStart>& warm) {
+  MapEvaluation r;
+  r.states = P.solve_channels(v_in, warm);
+  r.density = P.density(r.states);
+  Eigen::VectorXd n_tot = r.density[0];
+  for (std::size_t s = 1; s < r.density.size(); ++s) n_tot += r.density[s];
+  r.v_h = P.hartree_potential(n_tot);
+  XcOnMesh xc;
+  try {
+    xc = evaluate_xc(P.mesh(), P.xc(), r.density, P.density_threshold());
+  } catch (const NonFiniteModelError& e) {
+    throw e.with_position(P.mesh(), r.density);
+  }
+  r.v_xc = xc.potential;
+  const Eigen::VectorXd& W = P.mesh().density_weight();
+  EnergyParts& E = r.energy;
+  for (std::size_t c = 0; c < P.channels().size(); ++c) {
+    const Channel& ch = P.channels()[c];
+    for (std::size_t i = 0; i < ch.occupations.size(); ++i) E.band += ch.occupations[i] * r.states[c].energies(i);
+  }
+  double pot = 0.0;
+  for (int s = 0; s < P.nspin(); ++s) pot += W.dot(v_in[s].cwiseProduct(r.density[s]));
+  E.kinetic = E.band - pot;
+  E.external = W.dot(P.external_potential().cwiseProduct(n_tot));
+  E.hartree = P.hartree() ? P.hartree()->energy(n_tot, r.v_h) : 0.0;
+  E.xc = xc.energy;
+  E.nuclear_repulsion = P.nuclear_repulsion();
+  E.total = E.kinetic + E.external + E.hartree + E.xc + E.nuclear_repulsion;
+  r.v_out.resize(P.nspin());
+  for (int s = 0; s < P.nspin(); ++s) r.v_out[s] = P.external_potential() + r.v_h + r.v_xc[s];
+  return r;
+}
+
+namespace {
+
+Eigen::VectorXd stack(const std::vector<Eigen::VectorXd>& v) {
+  Eigen::Index n = 0;
+  for (const auto& x : v) n += x.size();
+  Eigen::VectorXd out(n);
+  Eigen::Index o = 0;
+  for (const auto& x : v) {
+    out.segment(o, x.size()) = x;
+    o += x.size();
+  }
+  return out;
+}
+
+std::vector<Eigen::VectorXd> unstack(const Eigen::VectorXd& x, int nspin) {
+  const Eigen::Index n = x.size() / nspin;
+  std::vector<Eigen::VectorXd> out(nspin);
+  for (int s = 0; s < nspin; ++s) out[s] = x.segment(s * n, n);
+  return out;
+}
+
+std::string format_step(const ScfStep& s) {
+  char buf[160];
+  std::snprintf(buf, sizeof buf, "  iter %3d  E = %.12f Ha  residual = %.3e Ha  max d(eps) = %.3e Ha", s.iteration,
+                s.energy, s.residual, s.eigenvalue_change);
+  return buf;
+}
+
+}  // namespace
+
+std::vector<Level> labelled_levels(const KsProblem& P, const std::vector<ChannelStates>& states,
+                                   const std::vector<double>& spin_shift) {
+  std::vector<Level> levels;
+  for (std::size_t c = 0; c < P.channels().size(); ++c) {
+    const Channel& ch = P.channels()[c];
+    for (int i = 0; i < ch.states; ++i) {
+      Level lv;
+      lv.label = ch.labels[i];
+      lv.channel = static_cast<int>(c);
+      lv.index = i;
+      lv.spin = ch.spin;
+      lv.l = ch.l;
+      lv.energy = states[c].energies(i) + (spin_shift.empty() ? 0.0 : spin_shift[ch.spin]);
+      lv.occupation = i < static_cast<int>(ch.occupations.size()) ? ch.occupations[i] : 0.0;
+      levels.push_back(lv);
+    }
+  }
+  return levels;
+}
+
+KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution* start) {
+  const int ns = P.nspin();
+  const Eigen::VectorXd& W = P.mesh().density_weight();
+  std::vector<Eigen::VectorXd> v_in = start ? start->v_s : P.initial_potential();
+  std::vector<EigenWarmStart> warm = start ? start->warm : std::vector<EigenWarmStart>{};
+  std::vector<Eigen::VectorXd> hist_v, hist_r;
+  std::vector<ScfStep> history;
+  std::vector<Eigen::VectorXd> prev_eps;
+  double prev_energy = std::numeric_limits<double>::quiet_NaN();
+  double best_residual = std::numeric_limits<double>::infinity();
+  // Divergence safeguard: the best iterate so far is kept; when the residual grows by
+  // kDivergence over it (or a potential is so wild that the eigensolver fails), the SCF goes
+  // back there with half the mixing and no Pulay history, at most kMaxRestarts times.
+  constexpr double kDivergence = 1e3;
+  constexpr int kMaxRestarts = 4;
+  constexpr std::size_t kStagnation = 30;
+  int last_restart = 0;
+  std::vector<double> best_trail;  // best residual after each iteration
+  std::vector<Eigen::VectorXd> best_v = v_in;
+  std::vector<EigenWarmStart> best_warm = warm;
+  int best_iteration = 0, restarts = 0;
+  double mixing = opt.mixing;
+  std::vector<std::string> restart_notes;
+  auto history_lines = [&]() {
+    std::vector<std::string> lines{"SCF residual history:"};
+    for (const auto& h : history) lines.push_back(format_step(h));
+    for (const auto& n : restart_notes) lines.push_back(n);
+    return lines;
+  };
+  auto restart = [&](int it, const std::string& what) {
+    std::ostringstream note;
+    note << "  iteration " << it << ": " << what << "; back to iteration " << best_iteration << " (residual "
+         << best_residual << " Ha) with mixing " << mixing * 0.5;
+    restart_notes.push_back(note.str());
+    if (opt.verbose) std::fprintf(stderr, "%s\n", note.str().c_str());
+    if (++restarts > kMaxRestarts || best_iteration == 0) {
+      std::ostringstream msg;
+      msg << "SCF diverged with functional " << xc_list_form(P.xc()) << ": " << what << " at iteration " << it
+          << " (first after the best iterate, iteration " << best_iteration << ")";
+      if (restarts > 1) msg << ", and " << restarts - 1 << " damped restarts did not help";
+      msg << "; try a smaller mixing or another grid";
+      throw NumericalError(msg.str(), history_lines());
+    }
+    mixing *= 0.5;
+    last_restart = it;
+    v_in = best_v;
+    warm = best_warm;
+    hist_v.clear();
+    hist_r.clear();
+    prev_eps.clear();
+    prev_energy = std::numeric_limits<double>::quiet_NaN();
+  };
+  for (int it = 1; it <= opt.max_iterations; ++it) {
+    MapEvaluation m;
+    try {
+      m = evaluate_ks_map(P, v_in, warm);
+    } catch (const NonFiniteModelError& e) {
+      // The functional itself is undefined at a density the SCF reached: no restart helps.
+      throw NumericalError(std::string(e.what()).append(" (SCF iteration ").append(std::to_string(it)).append(")"),
+                           history_lines());
+    } catch (const NumericalError& e) {
+      if (best_iteration == 0) throw;
+      restart(it, std::string("the Kohn-Sham map failed (") + e.what() + ")");
+      continue;
+    }
+    Eigen::VectorXd n_tot = m.density[0];
+    for (int s = 1; s < ns; ++s) n_tot += m.density[s];
+    const double N = W.dot(n_tot);
+    // Density-weighted metric: what the electrons feel, each spin's potential weighted by that
+    // spin's density. (Weighting the minority potential by the total density made the SCF stall
+    // for spin-polarized GGA atoms: where the minority density vanishes but the majority one
+    // does not, PBE-type correlation potentials of the empty spin grow like (1 − ζ)^(−1/3) and
+    // are numerical noise, felt by no electron.) The floor keeps the far tail, where only
+    // unoccupied states live, from being ignored by the extrapolation.
+    const int nn = static_cast<int>(n_tot.size());
+    Eigen::VectorXd dens_metric(nn * ns);
+    for (int s = 0; s < ns; ++s) dens_metric.segment(s * nn, nn) = W.cwiseProduct(m.density[s]) / N;
+    Eigen::VectorXd metric = dens_metric;
+    for (int s = 0; s < ns; ++s) metric.segment(s * nn, nn).array() += 1e-8 * W.array() / W.sum();
+    const Eigen::VectorXd vin = stack(v_in);
+    const Eigen::VectorXd res = stack(m.v_out) - vin;
+    const double r2 = dens_metric.dot(res.cwiseProduct(res));
+    ScfStep step;
+    step.iteration = it;
+    step.energy = m.energy.total;
+    step.residual = std::sqrt(r2);
+    step.eigenvalue_change = 0.0;
+    if (!prev_eps.empty()) {
+      for (std::size_t c = 0; c < m.states.size(); ++c)
+        step.eigenvalue_change =
+            std::max(step.eigenvalue_change, (m.states[c].energies - prev_eps[c]).cwiseAbs().maxCoeff());
+    } else {
+      step.eigenvalue_change = std::numeric_limits<double>::infinity();
+    }
+    if (!std::isfinite(step.energy) || !std::isfinite(step.residual)) {
+      if (best_iteration == 0)
+        throw NumericalError("SCF produced a non-finite energy or residual at iteration " + std::to_string(it) +
+                                 " with functional " + xc_list_form(P.xc()),
+                             history_lines());
+      restart(it, "non-finite energy or residual");
+      continue;
+    }
+    history.push_back(step);
+    if (opt.verbose) std::fprintf(stderr, "%s\n", format_step(step).c_str());
+    if (best_iteration > 0 && step.residual > kDivergence * best_residual) {
+      std::ostringstream what;
+      what << "residual " << step.residual << " Ha grew by more than " << kDivergence << " over the best";
+      restart(it, what.str());
+      continue;
+    }
+    // Stagnation (Pulay cycling between a few states) gets the same damped restart.
+    // Stagnation: the best residual has not halved in kStagnation iterations (Pulay cycling, or
+    // a steep tail potential that the mixing overshoots). Not near the tolerance, where
+    // rounding noise alone can hold the residual up.
+    best_trail.push_back(best_residual);
+    const std::size_t since = static_cast<std::size_t>(it - last_restart);
+    if (best_iteration > 0 && since > kStagnation && best_trail.size() > kStagnation &&
+        best_residual > 1e3 * opt.potential_tolerance &&
+        best_residual > 0.5 * best_trail[best_trail.size() - 1 - kStagnation]) {
+      std::ostringstream what;
+      what << "the best residual did not halve in " << kStagnation << " iterations";
+      restart(it, what.str());
+      continue;
+    }
+    const bool converged = step.residual < opt.potential_tolerance &&
+                           std::abs(step.energy - prev_energy) < opt.energy_tolerance &&
+                           step.eigenvalue_change < opt.eigenvalue_tolerance;
+    prev_eps.clear();
+    for (const auto& st : m.states) prev_eps.push_back(st.energies);
+    prev_energy = step.energy;
+    if (converged) {
+      KsSolution sol;
+      sol.states = std::move(m.states);
+      sol.density = std::move(m.density);
+      sol.v_s = v_in;
+      sol.v_xc = std::move(m.v_xc);
+      sol.v_h = std::move(m.v_h);
+      sol.v_ext = P.external_potential();
+      sol.energy = m.energy;
+      sol.history = std::move(history);
+      sol.warm = warm;
+      sol.iterations = it;
+      sol.levels = labelled_levels(P, sol.states);
+      return sol;
+    }
+    // Pulay / DIIS extrapolation with a restart safeguard when the residual blows up.
+    if (step.residual > 10.0 * best_residual && hist_v.size() > 1) {
+      hist_v.clear();
+      hist_r.clear();
+    }
+    if (step.residual < best_residual) {
+      best_residual = step.residual;
+      best_iteration = it;
+      best_v = v_in;
+      best_warm = warm;
+    }
+    hist_v.push_back(vin);
+    hist_r.push_back(res);
+    if (static_cast<int>(hist_v.size()) > std::max(1, opt.history)) {
+      hist_v.erase(hist_v.begin());
+      hist_r.erase(hist_r.begin());
+    }
+    const int k = static_cast<int>(hist_v.size());
+    Eigen::VectorXd next;
+    if (k == 1) {
+      next = vin + mixing * res;
+    } else {
+      Eigen::MatrixXd A = Eigen::MatrixXd::Zero(k + 1, k + 1);
+      Eigen::VectorXd rhs = Eigen::VectorXd::Zero(k + 1);
+      for (int i = 0; i < k; ++i)
+        for (int j = 0; j <= i; ++j) A(i, j) = A(j, i) = hist_r[i].dot(metric.cwiseProduct(hist_r[j]));
+      const double scale = A.topLeftCorner(k, k).diagonal().maxCoeff();
+      A.topLeftCorner(k, k) /= scale;
+      A.topLeftCorner(k, k).diagonal().array() += 1e-12;
+      A.block(0, k, k, 1).setOnes();
+      A.block(k, 0, 1, k).setOnes();
+      rhs(k) = 1.0;
+      const Eigen::VectorXd c = A.colPivHouseholderQr().solve(rhs);
+      next = Eigen::VectorXd::Zero(vin.size());
+      for (int i = 0; i < k; ++i) next += c(i) * (hist_v[i] + mixing * hist_r[i]);
+      if (!next.allFinite()) next = vin + mixing * res;
+    }
+    v_in = unstack(next, ns);
+  }
+  std::vector<std::string> lines = history_lines();
+  std::ostringstream msg;
+  if (history.empty()) throw NumericalError("SCF made no iteration", lines);
+  const ScfStep& last = history.back();
+  const double de = history.size() > 1 ? std::abs(last.energy - history[history.size() - 2].energy) : 0.0;
+  msg << "SCF did not converge in " << opt.max_iterations << " iterations (";
+  if (last.residual >= opt.potential_tolerance)
+    msg << "potential residual " << last.residual << " Ha > " << opt.potential_tolerance;
+  else if (de >= opt.energy_tolerance)
+    msg << "energy change " << de << " Ha > " << opt.energy_tolerance;
+  else
+    msg << "eigenvalue change " << last.eigenvalue_change << " Ha > " << opt.eigenvalue_tolerance;
+  msg << "); try more iterations, a smaller mixing, looser tolerances or a different grid";
+  throw NumericalError(msg.str(), lines);
+}
+
+}  // namespace stillpoint
