@@ -470,3 +470,16 @@ TEST(CliSolve, UnwritableOutputExits5NotInputError) {
   EXPECT_FALSE(contains(r.err, "input error")) << r.err;
   EXPECT_EQ(s.read("plain"), "a file, not a folder\n");
 }
+
+// check: an unusable report path is found before any atom is solved, and no report is written
+// (all reports or none).
+TEST(CliCheck, UnwritableJunitStopsBeforeComputingAndWritesNoReport) {
+  Scratch s;
+  s.write("t.csv", "Z,symbol,charge,configuration,approximation,quantity,value\n2,He,0,1s2,LDA,Etot,-2.834836\n");
+  s.write("plain", "a file\n");
+  const CliRun r = s.cli("check t.csv --report a.json --junit plain/b.xml");
+  EXPECT_EQ(r.rc, 5) << r.err;
+  EXPECT_TRUE(contains(r.err, "not a folder")) << r.err;
+  EXPECT_TRUE(s.absent_or_empty("a.json"));
+  EXPECT_FALSE(contains(r.err, "done:")) << "no atom may be solved first: " << r.err;
+}

@@ -49,7 +49,9 @@ int run_exact(const ExactCommandOptions& o) {
   }
   if (!o.output.empty()) {
     const auto files = sp::exact_output_files(in, results, o.output);
-    for (const auto& [name, content] : files) sp::write_file_atomically(o.output + "/" + name, content);
+    std::vector<std::pair<std::string, std::string>> set;  // all files or none
+    for (const auto& [name, content] : files) set.emplace_back(o.output + "/" + name, content);
+    sp::write_files_atomically(set);
     if (!o.quiet) std::cerr << "  wrote " << files.size() << " files to " << o.output << " (manifest.toml lists them)\n";
   }
   return 0;

@@ -105,7 +105,9 @@ int run_fit(const FitCommandOptions& o) {
     return sig == SIGTERM ? 143 : 130;
   }
   const sp::OutputFiles files = sp::fit_output_files(wf, res);
-  for (const auto& [name, text] : files) sp::write_file_atomically((fs::path(dir) / name).string(), text);
+  std::vector<std::pair<std::string, std::string>> set;  // all files or none
+  for (const auto& [name, text] : files) set.emplace_back((fs::path(dir) / name).string(), text);
+  sp::write_files_atomically(set);
   std::string plot_note;
   if (wf.plots) {
     const sp::OutputFiles scripts = sp::fit_plot_scripts(wf, res);

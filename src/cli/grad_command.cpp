@@ -130,8 +130,9 @@ int run_grad(const GradCommandOptions& o) {
       }
       files.emplace_back(o.output + "/" + s.name + "_potential_gradient.csv", csv.str());
     }
-    for (const auto& [path, text] : files) sp::write_file_atomically(path, text);
-    sp::write_file_atomically(o.output + "/grad.json", j.dump(2) + "\n");
+    std::vector<std::pair<std::string, std::string>> set(files.begin(), files.end());  // all or none
+    set.emplace_back(o.output + "/grad.json", j.dump(2) + "\n");
+    sp::write_files_atomically(set);
     std::cout << "  wrote " << o.output << "/grad.json" << (files.empty() ? "" : " and the gradient field CSV") << "\n";
   }
   return verified ? 0 : 1;

@@ -101,8 +101,7 @@ int run_invert(const InvertCommandOptions& o) {
   if (!o.output.empty()) {
     const std::string stem = in.system.name;
     const fs::path dir(o.output);
-    sp::write_file_atomically((dir / (stem + "_inversion.csv")).string(), csv);
-    sp::write_file_atomically((dir / (stem + "_inversion.json")).string(), json);
+    sp::write_files_atomically({{(dir / (stem + "_inversion.csv")).string(), csv}, {(dir / (stem + "_inversion.json")).string(), json}});
     draw(o.output, stem, in, r);
     std::cout << "wrote " << (dir / stem).string() << "_inversion{.json,.csv,.gp"
               << (fs::exists(dir / (stem + "_inversion.png")) ? ",.png,.svg" : "") << "}\n";

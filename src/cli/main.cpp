@@ -10,6 +10,8 @@
 // (so input errors in any system stop the run before any SCF), then solves all of them, and
 // only when every system has converged to finite results writes the files. Each file is
 // written atomically (temporary file + rename), so a reader never sees a partial file.
+#include <unistd.h>
+
 #include <CLI/CLI.hpp>
 #include <cmath>
 #include <cstdio>
@@ -46,6 +48,14 @@ void check_output_file(const std::string& path, const char* option) {
   std::error_code ec;
   if (fs::is_directory(path, ec))
     throw sp::InputError(std::string(option) + " " + path + ": is a directory; give a file name");
+  // Before any computation: the nearest existing folder above the file must be a writable
+  // folder, so that no report is lost after minutes of work (and none is written without the others).
+  fs::path up = fs::absolute(fs::path(path), ec).parent_path();
+  while (!up.empty() && !fs::exists(up, ec) && up != up.root_path()) up = up.parent_path();
+  if (!fs::is_directory(up, ec))
+    throw sp::OutputError(path, std::string(option) + ": '" + up.string() + "' is not a folder");
+  if (::access(up.c_str(), W_OK) != 0)
+    throw sp::OutputError(path, std::string(option) + ": the folder '" + up.string() + "' is not writable");
 }
 
 // Two spellings of one file (relative, absolute, through links); a file that does not exist
@@ -174,8 +184,11 @@ int run_check(const std::vector<std::string>& tables, double tolerance, const st
   if (!quiet) opt.progress = [](const std::string& s) { std::cerr << "  done: " << s << "\n"; };
   const sp::CheckReport rep = sp::run_reference_check(rows, opt);
   std::cout << sp::format_check_table(rep, tolerance);
-  if (!report.empty()) sp::write_file_atomically(report, sp::check_report_json(rep, tolerance));
-  if (!junit.empty()) sp::write_file_atomically(junit, sp::check_report_junit(rep, tolerance));
+  // All reports or none.
+  std::vector<std::pair<std::string, std::string>> outputs;
+  if (!report.empty()) outputs.emplace_back(report, sp::check_report_json(rep, tolerance));
+  if (!junit.empty()) outputs.emplace_back(junit, sp::check_report_junit(rep, tolerance));
+  sp::write_files_atomically(outputs);
   return rep.n_failed == 0 ? 0 : 1;
 }
 

@@ -184,9 +184,8 @@ void write_solution_files(const std::string& dir, const KsProblem& P, const KsSo
     v << "\n";
   }
   const std::string base = dir + "/" + P.spec().name;
-  write_file_atomically(base + "_density.csv", d.str());
-  write_file_atomically(base + "_potentials.csv", v.str());
-  write_file_atomically(base + ".json", json_text);
+  // One output set: a full disk leaves none of the three files behind.
+  write_files_atomically({{base + "_density.csv", d.str()}, {base + "_potentials.csv", v.str()}, {base + ".json", json_text}});
 }
 
 }  // namespace stillpoint
