@@ -259,7 +259,7 @@ TEST(ExactHelium, HarmonicWellCentreOfMassExcitation) {
 // ---------------------------------------------------------------------------------------
 
 TEST(ExactKsPotential, DiscreteIdentityHoldsByConstruction) {
-  // design note §8: phi = sqrt(n/2) is an eigenvector of T~ + diag(v_s) with eigenvalue
+  // docs/theory.md §8: phi = sqrt(n/2) is an eigenvector of T~ + diag(v_s) with eigenvalue
   // epsilon at every trusted node.
   const auto& r = helium();
   const Eigen::VectorXd& c = r.ks.orbital;

@@ -685,7 +685,7 @@ TEST(FitDataset, ExactManifestBecomesSystemsAndTerms) {
 
 // The residual Jacobian from tangent solves (GradientProblem::residuals, used by LM and for
 // the uncertainties) against two independent routes: the adjoint gradient (dL/dtheta =
-// 2 J^T r, design note differentiable-scf.md §3-4) and central finite differences of the
+// 2 J^T r, docs/theory.md §3-4) and central finite differences of the
 // residuals of the whole converged program (§10).
 TEST(FitJacobian, TangentJacobianMatchesAdjointGradientAndFiniteDifferences) {
   static const Reference ref = solve_references(line_systems(kTrueC));

@@ -1,5 +1,5 @@
 // Implicit gradients through the SCF fixed point against central finite differences of the
-// whole converged program (design note differentiable-scf.md §10: every analytic derivative
+// whole converged program (docs/theory.md §6: every analytic derivative
 // path must agree with finite differences of the full program; this is the standard test of
 // implicit differentiation, common practice). Richardson-extrapolated central differences at
 // a tight SCF tolerance are the reference; tangent and adjoint must agree to 1e-10.
@@ -214,7 +214,7 @@ TEST(ImplicitGradient, IonizationEnergyAcrossSystems) {
                          {ip, homo}, sp::ResponseOptions::Chi0Method::Automatic, "ionization energy");
 }
 
-// Total energies by stationarity need no linear solve (design note §5).
+// Total energies by stationarity need no linear solve (docs/theory.md §6).
 TEST(ImplicitGradient, EnergyNeedsNoLinearSolve) {
   using K = sp::ParameterRef::Kind;
   const auto s = atom(10, false, false);
@@ -233,7 +233,7 @@ TEST(ImplicitGradient, EnergyNeedsNoLinearSolve) {
 }
 
 // chi0 by projected Sternheimer solves equals the full sum over states to solver tolerance
-// (design note §6).
+// (docs/theory.md §5).
 TEST(Chi0, SternheimerEqualsSumOverStates) {
   for (bool pol : {false, true}) {
     const auto s = line_system(pol, false);

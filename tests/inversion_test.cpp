@@ -1,6 +1,6 @@
 // Kohn–Sham inversion (`invert`). Every check names its external source:
 //  [4e]  basis-data/reference/check-values.md §4e: for any two-electron singlet density the exact
-//        v_s = ε + (1/2)(√n)''/√n (design note differentiable-scf.md §8), elementary; the
+//        v_s = ε + (1/2)(√n)''/√n (docs/theory.md §8), elementary; the
 //        hydrogenic density n = 2(Z³/π)e^{−2Zr} has v_s = −Z/r and ε = −Z²/2 [exact].
 //  [1]   check-values §1: the soft-Coulomb well −1/√(x² + 2) has the exact ground state
 //        ψ ∝ (1 + s)e^{−s}, s = √(x² + 2), E0 = −1/2 [exact, derived and checked there].

@@ -1,6 +1,6 @@
 // The discrete exchange-correlation potential is the exact gradient of the discrete energy:
 //   v_{s,k} = (dE_xc / dn_{s,k}) / W_k,
-// checked against central finite differences of xc_energy (design: differentiable-scf.md §1,
+// checked against central finite differences of xc_energy (design: docs/theory.md §2,
 // §7 and §10, "the discrete v_xc equals the finite-difference gradient of the discrete E_xc").
 // This covers the weak-form GGA potential (the D^T term) and the radial first element, whose
 // density derivative ignores the weightless r = 0 node.

@@ -4,7 +4,7 @@
 // exchange-correlation potential v_xc = v_s − v_ext − v_H[n_t] behind it.
 //
 // Unknowns are the nodal values of Δ = v − v_ref at every mesh node, one vector per spin.
-// Two methods share the discrete Kohn–Sham map and its response (design note §2, §6, §8):
+// Two methods share the discrete Kohn–Sham map and its response (docs/theory.md §3, §6, §8):
 //
 //   Wu–Yang (default). Maximize the concave functional
 //       W(v) = Σ_i f_i ε_i(v) − Σ_k W_k v_k n_t,k   −  (α/2) Σ_s Δ_sᵀ K Δ_s
@@ -173,7 +173,7 @@ InversionResult invert_density(const SystemSpec& system, const std::vector<Eigen
 /// The discrete exact v_s of a single doubly occupied orbital with nodal density n (one spin
 /// channel holding two electrons, or one electron spin-polarized), up to the constant ε = 0:
 /// v_k = −(T̃ c)_k / c_k with c = √(W n / f) the orbital in the scaled basis (interior nodes).
-/// The discrete counterpart of v_s = ε + (1/2)(√n)''/√n (design note §8). Radial: l = 0.
+/// The discrete counterpart of v_s = ε + (1/2)(√n)''/√n (docs/theory.md §8). Radial: l = 0.
 Eigen::VectorXd single_orbital_potential(const Mesh& mesh, const Eigen::VectorXd& n, double occupation);
 
 /// The Wu–Yang Hessian A = diag(W) χ0 as a dense matrix on the interior nodes of spin `spin`,
