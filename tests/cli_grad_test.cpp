@@ -1,5 +1,5 @@
 // `stillpoint grad` end to end: verification against central finite differences of the whole
-// converged program (docs/theory.md §6), tangent and adjoint agreement, outputs and bad input.
+// converged program (docs/theory.md §6.5), tangent and adjoint agreement, outputs and bad input.
 #include <gtest/gtest.h>
 
 #include <nlohmann/json.hpp>

@@ -1,5 +1,5 @@
 // Implicit gradients through the SCF fixed point against central finite differences of the
-// whole converged program (docs/theory.md §6: every analytic derivative
+// whole converged program (docs/theory.md §6.5: every analytic derivative
 // path must agree with finite differences of the full program; this is the standard test of
 // implicit differentiation, common practice). Richardson-extrapolated central differences at
 // a tight SCF tolerance are the reference; tangent and adjoint must agree to 1e-10.

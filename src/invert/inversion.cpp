@@ -387,7 +387,7 @@ class Engine {
     return r;
   }
 
-  // Pair coefficients g_ij of the response of channel ci (docs/theory.md §7): per occupied i,
+  // Pair coefficients g_ij of the response of channel ci (docs/theory.md §5.1): per occupied i,
   // 2 (f_i − f_j) / (ε_i − ε_j), every pair counted once.
   Eigen::MatrixXd pair_coefficients(const Evaluation& e, std::size_t ci) const {
     const Channel& ch = P_.channels()[ci];
