@@ -93,7 +93,11 @@ auto located(const Mesh& m, const KsSolution& S, F f) {
   }
 }
 
-// dV/dtheta_p at fixed density, per spin at every node.
+// dE_nn/dtheta for nucleus parameters.
+double nuclear_repulsion_derivative(const SystemSpec& s, const ParameterRef& p);
+
+}  // namespace
+
 std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& P, const KsSolution& S, const ParameterRef& p) {
   using K = ParameterRef::Kind;
   const Mesh& m = P.mesh();
@@ -147,7 +151,8 @@ std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& P, const KsSol
   return std::vector<Eigen::VectorXd>(P.nspin(), v);
 }
 
-// dE_nn/dtheta for nucleus parameters.
+namespace {
+
 double nuclear_repulsion_derivative(const SystemSpec& s, const ParameterRef& p) {
   if (p.kind != ParameterRef::Kind::Nucleus || p.field == "softening") return 0.0;
   const auto& nuc = s.line.nuclei;
@@ -162,7 +167,8 @@ double nuclear_repulsion_derivative(const SystemSpec& s, const ParameterRef& p) 
   return d_e;
 }
 
-// dE/dtheta at fixed density (stationarity of the Kohn–Sham energy).
+}  // namespace
+
 double explicit_energy_derivative(const KsProblem& P, const KsSolution& S, const ParameterRef& p) {
   if (p.kind == ParameterRef::Kind::XcWeight) {
     XcFunctional term_only = P.xc();
@@ -176,6 +182,8 @@ double explicit_energy_derivative(const KsProblem& P, const KsSolution& S, const
   const auto dv = parameter_potential(P, S, p);
   return P.mesh().density_weight().dot(dv[0].cwiseProduct(S.total_density())) + nuclear_repulsion_derivative(P.spec(), p);
 }
+
+namespace {
 
 struct LevelRef {
   int channel = -1, state = -1;

@@ -17,6 +17,7 @@
 #include <string>
 #include <vector>
 
+#include "stillpoint/response/gradient.hpp"
 #include "stillpoint/response/response.hpp"
 #include "stillpoint/ks/scf.hpp"
 
@@ -25,6 +26,9 @@ namespace stillpoint {
 class ConvergedState {
  public:
   explicit ConvergedState(const SystemSpec& spec, const ScfOptions& scf = {}, const ResponseOptions& response = {});
+  /// Same, starting the SCF from `start`: a converged solution of this system at nearby
+  /// parameters (same mesh); null starts from the initial potential.
+  ConvergedState(const SystemSpec& spec, const ScfOptions& scf, const ResponseOptions& response, const KsSolution* start);
 
   const KsProblem& problem() const { return problem_; }
   const KsSolution& solution() const { return solution_; }
@@ -47,6 +51,39 @@ class ConvergedState {
   std::vector<Eigen::VectorXd> adjoint(const std::vector<Eigen::VectorXd>& dL_dn, const std::vector<double>& dL_deps) const;
   /// <zeta, dV> in the weighted inner product: dL/dtheta for a parameter with dV/dtheta = dV.
   double contract(const std::vector<Eigen::VectorXd>& zeta, const std::vector<Eigen::VectorXd>& dV) const;
+
+  /// Linear-solve statistics of a product (GMRES on the Kohn–Sham response).
+  struct SolveCount {
+    int linear_solves = 0;
+    int krylov_iterations = 0;
+    double max_linear_residual = 0.0;  ///< largest true relative residual of the solves
+  };
+
+  /// A linear functional of the outputs, L = energy E + sum_k density_k n_k + sum_i levels_i eps_i,
+  /// with n_k the total density at mesh node k (a plain sum, no quadrature weight) and eps_i the
+  /// levels in the order of solution().levels. Empty density or levels mean zero.
+  struct Cotangent {
+    double energy = 0.0;
+    Eigen::VectorXd density;
+    std::vector<double> levels;
+  };
+  /// dL/dtheta for every parameter (vector-Jacobian product): one adjoint solve whatever the
+  /// number of parameters, none when L depends on the energy only (stationarity). `system`
+  /// of each ParameterRef is ignored. A density weight on a node the discrete problem has no
+  /// variable for (boundary nodes, where the density is fixed, or r = 0, which has no
+  /// quadrature weight) must be zero: InputError otherwise.
+  Eigen::VectorXd vector_jacobian(const std::vector<ParameterRef>& params, const Cotangent& w,
+                                  SolveCount* count = nullptr) const;
+
+  /// Directional derivative of the outputs along theta_dot (Jacobian-vector product): one
+  /// tangent solve. Returns dE, dn (total, every node) and d eps (levels order).
+  struct OutputTangent {
+    double energy = 0.0;
+    Eigen::VectorXd density;
+    std::vector<double> levels;
+  };
+  OutputTangent jacobian_vector(const std::vector<ParameterRef>& params, const Eigen::VectorXd& theta_dot,
+                                SolveCount* count = nullptr) const;
 
  private:
   KsProblem problem_;

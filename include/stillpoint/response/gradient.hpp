@@ -50,6 +50,14 @@ Eigen::VectorXd parameter_values(const std::vector<SystemSpec>& systems, const s
 std::vector<SystemSpec> apply_parameters(const std::vector<SystemSpec>& systems, const std::vector<ParameterRef>& params,
                                          const Eigen::VectorXd& theta);
 
+/// dV/dtheta at fixed density for one parameter of the system of `problem`, per spin at every
+/// node (hartree per unit of the parameter): the right-hand side of its tangent equation.
+std::vector<Eigen::VectorXd> parameter_potential(const KsProblem& problem, const KsSolution& solution,
+                                                 const ParameterRef& parameter);
+/// dE/dtheta at fixed density, which by stationarity of the Kohn–Sham energy is the total
+/// derivative of the converged energy (nuclear repulsion included).
+double explicit_energy_derivative(const KsProblem& problem, const KsSolution& solution, const ParameterRef& parameter);
+
 struct LossTerm {
   enum class Kind { Density, Energy, Eigenvalue, EnergyDifference };
   Kind kind = Kind::Energy;
