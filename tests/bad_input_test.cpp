@@ -385,6 +385,19 @@ TEST(BadInputCsv, InconsistentRows) {
 }
 
 TEST(BadInputCsv, ShippedTableReads) {
+  // The shipped copy of NIST SRD 141's Mg page (basis-data/reference/nist-lda-lsd.csv): 44 rows,
+  // Mg and Mg+ in LDA and LSD; first and last rows as printed there.
   const auto rows = sp::read_reference_table(std::string(STILLPOINT_REFERENCE_DIR) + "/nist-lda-lsd.csv");
-  EXPECT_GT(rows.size(), 10u);
+  ASSERT_EQ(rows.size(), 44u);
+  EXPECT_EQ(rows.front().Z, 12);
+  EXPECT_EQ(rows.front().charge, 0);
+  EXPECT_EQ(rows.front().configuration, "[Ne] 3s2");
+  EXPECT_EQ(rows.front().approximation, "LDA");
+  EXPECT_EQ(rows.front().quantity, "Etot");
+  EXPECT_EQ(rows.front().value, -199.139406);
+  EXPECT_EQ(rows.back().charge, 1);
+  EXPECT_EQ(rows.back().approximation, "LSD");
+  EXPECT_EQ(rows.back().quantity, "eps_3s_up");
+  EXPECT_EQ(rows.back().value, -0.388421);
+  EXPECT_EQ(rows.back().line, 51);  // 7 comment lines and the header come first
 }

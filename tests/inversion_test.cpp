@@ -415,7 +415,8 @@ TEST(InvertRoundTrip, DirectMinimizationReachesTheDensityTolerance) {
   EXPECT_LE(r.density_l1, 1e-6);
   Eigen::VectorXd exact(m.num_nodes());
   for (int k = 0; k < exact.size(); ++k) exact(k) = -1.0 / std::sqrt(m.x()(k) * m.x()(k) + 2.0);
-  EXPECT_LT(deviation(m, r.v_s[0], exact, n, 1e-4, false).max, 1e-3);
+  // Measured 6e-5 hartree where n > 1e-4 (the density tolerance 1e-6 bounds it); 2e-4 leaves margin.
+  EXPECT_LT(deviation(m, r.v_s[0], exact, n, 1e-4, false).max, 2e-4);
 }
 
 // ---------------------------------------------------------------------------------------------
