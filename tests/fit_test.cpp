@@ -24,6 +24,7 @@
 #include "stillpoint/ks/atom_config.hpp"
 #include "stillpoint/fit/fit.hpp"
 #include "stillpoint/fit/input.hpp"
+#include "stillpoint/response/gradient.hpp"
 #include "stillpoint/ks/grid_presets.hpp"
 
 namespace sp = stillpoint;
@@ -379,6 +380,31 @@ TEST(FitUncertainty, GaussNewtonErrorsAndCorrelations) {
   EXPECT_NEAR(res.uncertainty.correlation(0, 0), 1.0, 1e-12);
   EXPECT_NEAR(res.uncertainty.correlation(0, 1), res.uncertainty.correlation(1, 0), 1e-12);
   EXPECT_LT(std::abs(res.uncertainty.correlation(0, 1)), 1.0);
+
+  // Independently: the textbook Gauss–Newton covariance s^2 (J^T J)^-1, s^2 = RSS / (m - p)
+  // (e.g. Press et al., Numerical Recipes, §15.5; common practice), with J from central
+  // differences of the residuals of the whole program at the optimum. It is invariant under a
+  // common scaling of the residuals, so the fit's own normalization does not enter.
+  sp::GradientOptions go = spec.gradient;
+  go.scf.potential_tolerance = 1e-12;
+  go.scf.energy_tolerance = 1e-13;
+  go.scf.eigenvalue_tolerance = 1e-12;
+  sp::GradientProblem gp(spec.systems, spec.parameters, spec.training, go);
+  const Eigen::VectorXd r0 = gp.residuals(res.fitted, false).residuals;
+  const int m = static_cast<int>(r0.size()), p = 2;
+  Eigen::MatrixXd J(m, p);
+  for (int j = 0; j < p; ++j) {
+    const double h = 1e-4 * std::max(1.0, std::abs(res.fitted(j)));
+    Eigen::VectorXd tp = res.fitted, tm = res.fitted;
+    tp(j) += h;
+    tm(j) -= h;
+    J.col(j) = (gp.residuals(tp, false).residuals - gp.residuals(tm, false).residuals) / (2 * h);
+  }
+  const double s2 = r0.squaredNorm() / (m - p);
+  const Eigen::MatrixXd cov = s2 * (J.transpose() * J).inverse();
+  for (int j = 0; j < p; ++j)
+    EXPECT_NEAR(res.uncertainty.standard_error(j), std::sqrt(cov(j, j)), 1e-3 * std::sqrt(cov(j, j))) << j;
+  EXPECT_NEAR(res.uncertainty.correlation(0, 1), cov(0, 1) / std::sqrt(cov(0, 0) * cov(1, 1)), 1e-3);
 }
 
 // ---------------------------------------------------------------------------------------
