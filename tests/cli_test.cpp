@@ -11,6 +11,7 @@
 #include <map>
 #include <nlohmann/json.hpp>
 #include <sstream>
+#include <regex>
 #include <string>
 #include <vector>
 
@@ -482,4 +483,29 @@ TEST(CliCheck, UnwritableJunitStopsBeforeComputingAndWritesNoReport) {
   EXPECT_TRUE(contains(r.err, "not a folder")) << r.err;
   EXPECT_TRUE(s.absent_or_empty("a.json"));
   EXPECT_FALSE(contains(r.err, "done:")) << "no atom may be solved first: " << r.err;
+}
+
+// Long work shows progress on standard error; --quiet silences it and changes nothing else
+// (results on standard output stay the same, up to the measured times; warnings still appear).
+TEST(CliProgress, QuietSilencesProgressOnlyForEverySubcommand) {
+  const std::string root = STILLPOINT_SOURCE_DIR;
+  const std::vector<std::string> runs = {
+      "solve '" + root + "/workflows/solve-1d-molecule.toml'",
+      "check '" + root + "/basis-data/reference/nist-lda-lsd.csv'",
+      "grad '" + root + "/workflows/grad-1d-helium.toml' --verify",
+      "fit '" + root + "/workflows/fit-atoms-xalpha.toml'",
+      "invert '" + root + "/workflows/invert-1d-noninteracting.toml'",
+      "functionals --survey quick --only lda_x --only gga_x_pbe",
+  };
+  const std::regex seconds(R"([0-9.]+(e[-+]?[0-9]+)? s\b)");
+  for (const std::string& args : runs) {
+    clitest::Scratch dir;
+    const clitest::CliRun loud = dir.cli(args);
+    const clitest::CliRun quiet = dir.cli(args + " --quiet");
+    EXPECT_EQ(loud.rc, 0) << args << "\n" << loud.err;
+    EXPECT_EQ(quiet.rc, 0) << args;
+    EXPECT_FALSE(loud.err.empty()) << args << ": no progress lines";
+    EXPECT_EQ(quiet.err, "") << args;
+    EXPECT_EQ(std::regex_replace(loud.out, seconds, "T s"), std::regex_replace(quiet.out, seconds, "T s")) << args;
+  }
 }

@@ -23,7 +23,13 @@ int run_grad(const GradCommandOptions& o) {
   for (const auto& w : in.warnings) std::cerr << "stillpoint: warning: " << w << "\n";
   sp::GradientProblem G(in.base.systems, in.parameters, in.loss, in.options);
   const Eigen::VectorXd theta = G.initial_values();
+  if (!o.quiet)
+    std::cerr << "  grad: " << G.active_systems().size() << " systems, " << theta.size() << " parameters ("
+              << (in.options.mode == sp::GradientOptions::Mode::Adjoint ? "adjoint" : "tangent") << ")\n";
   const sp::GradientResult r = G.evaluate(theta);
+  if (!o.quiet)
+    std::cerr << "  grad: " << r.linear_solves << " linear solves, SCF " << r.scf_seconds << " s, derivatives "
+              << r.gradient_seconds << " s\n";
   if (!std::isfinite(r.loss) || !r.gradient.allFinite())
     throw sp::NumericalError("the loss or its gradient is not finite; nothing was written");
   Eigen::VectorXd fd;
@@ -36,7 +42,13 @@ int run_grad(const GradCommandOptions& o) {
     tight.eigenvalue_tolerance = std::min(tight.eigenvalue_tolerance, 1e-12);
     tight.max_iterations = std::max(tight.max_iterations, 400);
     if (!o.quiet) std::cerr << "  verifying " << theta.size() << " components by central differences (4 SCFs each)\n";
-    fd = G.finite_difference_gradient(theta, sp::default_fd_steps(in.parameters, theta, in.verify_step), tight);
+    // One line per component is too much for a grid potential: about twenty lines in all.
+    const int every = std::max<int>(1, static_cast<int>(theta.size()) / 20);
+    auto progress = [&](int done, int total) {
+      if (!o.quiet && (done % every == 0 || done == total))
+        std::cerr << "  verified " << done << "/" << total << " components\n";
+    };
+    fd = G.finite_difference_gradient(theta, sp::default_fd_steps(in.parameters, theta, in.verify_step), tight, progress);
   }
   const char* mode = in.options.mode == sp::GradientOptions::Mode::Adjoint ? "adjoint" : "tangent";
   std::ostringstream out;

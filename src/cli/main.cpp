@@ -101,7 +101,7 @@ bool solution_is_finite(const sp::KsSolution& s) {
   return true;
 }
 
-int run_solve(const std::string& file, const std::string& out_dir, bool verbose) {
+int run_solve(const std::string& file, const std::string& out_dir, bool verbose, bool quiet) {
   check_output_dir(out_dir);
   sp::SolveInput in = sp::read_solve_input(file);
   if (verbose) in.scf.verbose = true;
@@ -125,6 +125,9 @@ int run_solve(const std::string& file, const std::string& out_dir, bool verbose)
   std::vector<sp::KsSolution> solutions;
   solutions.reserve(n);
   for (std::size_t i = 0; i < n; ++i) {
+    if (!quiet)
+      std::cerr << "  solve [" << i + 1 << "/" << n << "] " << in.systems[i].name << " (" << problems[i].mesh().num_nodes()
+                << " nodes) ...\n";
     try {
       solutions.push_back(sp::solve_scf(problems[i], in.scf));
     } catch (const sp::NumericalError& e) {
@@ -210,6 +213,8 @@ int main(int argc, char** argv) {
                     "write NAME.json, NAME_density.csv and NAME_potentials.csv for every system into this directory "
                     "(only when all systems succeed)");
   solve->add_flag("--verbose,-v", verbose, "print every SCF iteration");
+  bool solve_quiet = false;
+  solve->add_flag("--quiet,-q", solve_quiet, "no progress lines");
 
   std::vector<std::string> tables;
   double tolerance = 1e-6;
@@ -277,7 +282,7 @@ int main(int argc, char** argv) {
     return rc == 0 ? 0 : 2;
   }
   try {
-    if (*solve) return run_solve(solve_file, out_dir, verbose);
+    if (*solve) return run_solve(solve_file, out_dir, verbose, solve_quiet);
     if (*check) return run_check(tables, tolerance, report, junit, grid, quiet);
     if (*grad) {
       if (!std::isfinite(gopt.verify_tolerance))

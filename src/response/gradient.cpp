@@ -668,7 +668,8 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
 }
 
 Eigen::VectorXd GradientProblem::finite_difference_gradient(const Eigen::VectorXd& theta, const Eigen::VectorXd& steps,
-                                                            const ScfOptions& tight) {
+                                                            const ScfOptions& tight,
+                                                            const std::function<void(int, int)>& progress) {
   Eigen::VectorXd g(theta.size());
   loss(theta, &tight);  // converge the warm starts tightly at the base point first
   const std::vector<KsSolution> base = warm_;
@@ -687,6 +688,7 @@ Eigen::VectorXd GradientProblem::finite_difference_gradient(const Eigen::VectorX
   for (int p = 0; p < theta.size(); ++p) {
     const double d1 = central(p, steps(p)), d2 = central(p, 0.5 * steps(p));
     g(p) = (4.0 * d2 - d1) / 3.0;
+    if (progress) progress(p + 1, static_cast<int>(theta.size()));
   }
   warm_ = base;
   cache_.reset();

@@ -5,6 +5,7 @@
 //   adjoint  (I - chi0 K) zeta = g_v        (one solve per system, whatever the parameter count)
 // Energies use the stationarity shortcut dE/dtheta = dE/dtheta|_n (no solve).
 #include <Eigen/Dense>
+#include <functional>
 #include <limits>
 #include <memory>
 #include <optional>
@@ -146,8 +147,10 @@ class GradientProblem {
   /// Loss only (SCF of every system), with tighter SCF options if given.
   double loss(const Eigen::VectorXd& theta, const ScfOptions* scf = nullptr);
   /// Central finite differences of the whole converged program, step h_p per parameter.
+  /// `progress(done, total)` (optional) is called after each component.
   Eigen::VectorXd finite_difference_gradient(const Eigen::VectorXd& theta, const Eigen::VectorXd& steps,
-                                             const ScfOptions& tight);
+                                             const ScfOptions& tight,
+                                             const std::function<void(int, int)>& progress = {});
 
   /// True when every term is a squared error (has a target, or is a density distance).
   bool residual_form() const;
