@@ -145,7 +145,7 @@ TEST(FunctionalsLong, EveryLdaAndGgaConvergesOrIsRefused) {
   for (const auto& r : rows) {
     if (!r.refusal.empty()) continue;
     ++converged;
-    for (const auto& o : r.outcomes) EXPECT_TRUE(o.converged) << r.entry.name << " on " << o.system << ": " << o.error;
+    for (const auto& o : r.outcomes) EXPECT_TRUE(o.acceptable()) << r.entry.name << " on " << o.system << ": " << o.error;
   }
   EXPECT_GT(converged, 200);
 }

@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <atomic>
+#include <memory>
 #include <cstdio>
 #include <sstream>
 #include <thread>
@@ -52,7 +53,7 @@ bool usable_kind(const LibxcEntry& e) {
 }  // namespace
 
 bool SurveyRow::all_converged() const {
-  return refusal.empty() && std::all_of(outcomes.begin(), outcomes.end(), [](const auto& o) { return o.converged; });
+  return refusal.empty() && std::all_of(outcomes.begin(), outcomes.end(), [](const auto& o) { return o.acceptable(); });
 }
 
 std::vector<SurveySystem> survey_systems(const std::string& set) {
@@ -88,8 +89,17 @@ SurveyRow survey_functional(const LibxcEntry& entry, const std::vector<SurveySys
     if (row.xc.empty()) row.xc = spec.xc;
     SurveyOutcome o;
     o.system = sys.label;
+    std::unique_ptr<KsProblem> built;
     try {
-      const KsProblem problem(spec);
+      built = std::make_unique<KsProblem>(spec);
+    } catch (const InputError& e) {
+      o.refused = true;
+      o.error = e.what();
+      row.outcomes.push_back(std::move(o));
+      continue;
+    }
+    try {
+      const KsProblem& problem = *built;
       const XcFunctional& f = problem.xc();
       row.tail_cut = f.term(f.size() - 1).tail_cut();
       const KsSolution sol = solve_scf(problem);
@@ -189,17 +199,26 @@ std::string survey_markdown(const std::vector<SurveyRow>& rows, const std::strin
       s << "refused: " << esc(why) << " | | |\n";
       continue;
     }
-    std::string results, errors;
+    std::string results, errors, refused_on, refused_why;
     for (const auto& o : r.outcomes) {
       if (o.converged) {
         char b[96];
         std::snprintf(b, sizeof b, "%.6f Ha (%d)", o.energy, o.iterations);
         results += (results.empty() ? "" : ", ") + o.system + " " + b;
+      } else if (o.refused) {
+        refused_on += (refused_on.empty() ? "" : ", ") + o.system;
+        if (refused_why.empty()) {
+          refused_why = o.error;
+          if (const auto p = refused_why.find(": functional '"); p != std::string::npos) refused_why = refused_why.substr(p + 2);
+          if (const auto p = refused_why.find(") "); p != std::string::npos && refused_why.rfind("functional '", 0) == 0)
+            refused_why = refused_why.substr(p + 2);
+        }
       } else {
         errors += (errors.empty() ? "" : "; ") + o.system + ": " + o.error.substr(0, 160);
       }
     }
     std::string status = errors.empty() ? "converges" : "FAILS: " + esc(errors);
+    if (!refused_on.empty()) status += "; refused on " + esc(refused_on) + ": " + esc(refused_why);
     if (r.tail_cut > 0) {
       char b[96];
       std::snprintf(b, sizeof b, " (switched off below n = %.0e, where its tail is unusable)", r.tail_cut);

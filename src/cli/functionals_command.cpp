@@ -33,7 +33,7 @@ int run_functionals(const FunctionalsCommandOptions& o) {
       return;
     }
     for (const auto& x : r.outcomes)
-      if (!x.converged) {
+      if (!x.acceptable()) {
         ++failed;
         std::cerr << "  " << r.entry.name << " on " << x.system << ": FAILED: " << x.error << "\n";
       }

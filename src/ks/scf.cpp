@@ -188,9 +188,17 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     step.residual = std::sqrt(r2);
     step.eigenvalue_change = 0.0;
     if (!prev_eps.empty()) {
-      for (std::size_t c = 0; c < m.states.size(); ++c)
-        step.eigenvalue_change =
-            std::max(step.eigenvalue_change, (m.states[c].energies - prev_eps[c]).cwiseAbs().maxCoeff());
+      // Occupied levels only: they define the density and the energy. An empty level of an
+      // empty spin channel (polarized H's 1s down) sits in a potential that some correlation
+      // functionals make singular where that spin's density vanishes (OP, ML, PK09: v ~ n^(-1/3)),
+      // so it never settles, and it changes nothing that the SCF computes.
+      for (std::size_t c = 0; c < m.states.size(); ++c) {
+        const auto& occ = P.channels()[c].occupations;
+        for (std::size_t i = 0; i < occ.size() && i < static_cast<std::size_t>(m.states[c].energies.size()); ++i)
+          if (occ[i] > 0.0)
+            step.eigenvalue_change =
+                std::max(step.eigenvalue_change, std::abs(m.states[c].energies(i) - prev_eps[c](i)));
+      }
     } else {
       step.eigenvalue_change = std::numeric_limits<double>::infinity();
     }

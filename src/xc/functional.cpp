@@ -133,7 +133,8 @@ class LibxcTerm final : public XcTerm {
       if (is1d) configure_1d(h->f, settings.softening);
     }
     tail_cut_ = probe_tail();
-    minority_ratio_ = probe_minority_ratio();
+    minority_floor_ = probe_minority_floor();
+    open_shell_refusal_ = probe_minority_divergence();
     if (const double n = probe_collapse(is1d); n > 0.0) {
       std::ostringstream m;
       m << "functional '" << name_ << "' (" << xc_func_info_get_name(info) << ") has an energy density that falls "
@@ -154,6 +155,7 @@ class LibxcTerm final : public XcTerm {
   /// Density below which this term is switched off (0: never). Only functionals whose potential
   /// diverges in an exponentially decaying tail get one (see probe_tail).
   double tail_cut() const override { return tail_cut_; }
+  std::string open_shell_refusal() const override { return open_shell_refusal_; }
 
   std::string name() const override { return name_; }
   bool needs_gradient() const override { return family_ == XC_FAMILY_GGA; }
@@ -314,11 +316,15 @@ class LibxcTerm final : public XcTerm {
     return 0.0;
   }
 
-  // Polarized correlation: the largest ratio n_minority / n_majority at which libxc returns a
-  // non-finite value (majority densities 1e-2..1e-20, model tails of several decay constants),
-  // times ten (0 if none). A minority density below that fraction is then taken as exactly
-  // zero, libxc's own fully polarized limit; it carries no electron anyone could see.
-  double probe_minority_ratio() const {
+  // Polarized correlation: the largest minority density at which libxc returns a non-finite
+  // value (majority densities 1e-2..1e-20, minority ones from 1e-3 of that down, model tails of
+  // several decay constants), times ten (0 if none). A minority density below that is then taken
+  // as exactly zero, libxc's own fully polarized limit; it carries no electron anyone could see.
+  // (B97-type same-spin terms give NaN below n_minority = 1e-18 whatever the majority density:
+  // an absolute floor. A floor relative to the majority density, as once used, cut at 1e-3 of
+  // it, where the minority terms still carry 1e-5 hartree, and made Li's SCF flip between two
+  // states.)
+  double probe_minority_floor() const {
     if (kind_ == XC_EXCHANGE) return 0.0;
     double worst = 0.0;
     std::vector<double> rho, sigma;
@@ -339,9 +345,52 @@ class LibxcTerm final : public XcTerm {
         for (int k = 0; k < 6; ++k)
           ok = ok && std::isfinite(b.v2rhosigma[6 * j + k]) && std::isfinite(b.v2sigma2[6 * j + k]) &&
                std::isfinite(b.vsigma[3 * (j) + k % 3]);
-      if (!ok) worst = std::max(worst, rho[2 * j + 1] / rho[2 * j]);
+      if (!ok) worst = std::max(worst, rho[2 * j + 1]);
     }
-    return worst > 0.0 ? std::min(10.0 * worst, 1e-3) : 0.0;
+    return worst > 0.0 ? 10.0 * worst : 0.0;
+  }
+
+  // Where one spin's density vanishes beside the other's (the tail of Li, whose 1s down density
+  // decays much faster than its 2s up density), some correlation functionals have a minority
+  // potential that grows without bound, like n_minority^(-1/3) (ML, PK09, modified Chachiyo,
+  // SOGGA11) or like its logarithm (OP). The Kohn-Sham potential of that spin is then unbounded
+  // below in the tail and the open-shell problem has no ground state: the SCF can only diverge.
+  // The probe follows v_minority at fixed majority densities (1e-1, 1e-3 bohr^-3) as the ratio
+  // falls from 1e-3 to 1e-8 to 1e-13, with tail-like gradients (the minority decaying three
+  // times faster): a steady fall by more than 0.2 hartree per five decades, to below -1
+  // hartree, is a divergence. Bounded forms (PW92, LYP, HCTH) change by less than 0.1.
+  std::string probe_minority_divergence() const {
+    if (kind_ == XC_EXCHANGE) return {};  // spin-scaled: v_down depends on n_down alone
+    // libxc treats 1 - zeta below about 1e-15 as fully polarized, so the ratios stay above that.
+    const double ratios[3] = {1e-3, 1e-8, 1e-13};
+    for (double up : {1e-1, 1e-3}) {
+      std::vector<double> rho, sigma;
+      for (double r : ratios) {
+        const double dn = up * r, a = 1.0, b = 3.0;
+        rho.insert(rho.end(), {up, dn});
+        sigma.insert(sigma.end(), {a * a * up * up, a * b * up * dn, b * b * dn * dn});
+      }
+      Buffers buf(3, 2, 1);
+      eval(pol_.f, 3, rho.data(), gga() ? sigma.data() : nullptr, 1, buf);
+      double v[3];
+      for (int k = 0; k < 3; ++k) v[k] = buf.vrho[2 * k + 1];
+      const bool finite = std::isfinite(v[0]) && std::isfinite(v[1]) && std::isfinite(v[2]);
+      // Only a fall towards minus infinity: a potential that grows to plus infinity (PBE-type
+      // correlation, like (1 - zeta)^(-1/3)) is a barrier the minority electrons stay out of.
+      const bool growing = finite && v[1] < v[0] - 0.2 && v[2] < v[1] - 0.2 && v[2] < -1.0;
+      if (growing) {
+        std::ostringstream m;
+        m << "functional '" << name_ << "' (" << xc_func_info_get_name(unpol_.f.info)
+          << ") has a minority-spin potential that falls without bound as the spin polarization approaches 1 (at n_majority = "
+          << up << " bohr^-3: " << v[0] << ", " << v[1] << ", " << v[2]
+          << " hartree for n_minority/n_majority = 1e-3, 1e-8, 1e-13); in an open-shell atom the minority density "
+             "decays faster than the majority one, so that potential is unbounded below in the tail and the "
+             "spin-polarized problem has no ground state. Use it for closed shells, unpolarized, or with one spin "
+             "channel empty";
+        return m.str();
+      }
+    }
+    return {};
   }
 
   // e -> S(n) e with S = 0 below the tail cut, 1 above ten times it, and the quintic smoothstep
@@ -504,7 +553,7 @@ class LibxcTerm final : public XcTerm {
     for (std::size_t i = 0; i < np; ++i) {
       const double tot = rho[2 * i] + rho[2 * i + 1];
       for (int s = 0; s < 2; ++s)
-        if (rho[2 * i + s] < std::max(1e-14, minority_ratio_) * tot) {
+        if (rho[2 * i + s] < std::max(1e-14 * tot, minority_floor_)) {
           rho[2 * i + s] = 0.0;
           zero_spin[2 * i + s] = 1;
           if (gga()) {
@@ -557,7 +606,8 @@ class LibxcTerm final : public XcTerm {
   int family_ = 0, kind_ = 0;
   double threshold_ = 0;
   double tail_cut_ = 0;
-  double minority_ratio_ = 0;  // polarized: a spin below this fraction of the total is taken as zero
+  std::string open_shell_refusal_;
+  double minority_floor_ = 0;  // polarized: a spin density (bohr^-3) below this is taken as zero
   std::string name_;
 };
 

@@ -28,7 +28,11 @@ struct SurveyOutcome {
   bool converged = false;
   int iterations = 0;
   double energy = 0.0;  ///< total energy, hartree
-  std::string error;    ///< why it failed (empty when converged)
+  /// Refused for this system before the SCF (for example an open shell with a functional whose
+  /// minority-spin potential diverges); `error` then holds the reason.
+  bool refused = false;
+  std::string error;    ///< why it failed or was refused (empty when converged)
+  bool acceptable() const { return converged || refused; }
 };
 
 struct SurveyRow {

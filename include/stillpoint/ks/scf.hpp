@@ -40,7 +40,7 @@ struct ScfStep {
   int iteration = 0;
   double energy = 0.0;
   double residual = 0.0;           ///< density-weighted RMS of v_out - v_in, hartree
-  double eigenvalue_change = 0.0;  ///< max |change| of a computed eigenvalue, hartree
+  double eigenvalue_change = 0.0;  ///< max |change| of an occupied level's eigenvalue, hartree
 };
 
 struct Level {
