@@ -617,6 +617,19 @@ TEST(FitCli, OutputsAndFittedModelRoundTrip) {
   EXPECT_NE(b.err.find("bad.toml:2:11: key 'fit.threads'"), std::string::npos) << b.err;
 }
 
+// A fit whose first SCF fails exits 3 with the residual history and leaves no output folder
+// (not even an empty one) when it had to create it.
+TEST(FitCli, FailureAtTheStartLeavesNoFolder) {
+  Scratch s;
+  s.write("w.toml", "[scf]\nmax_iterations = 2\n" + std::string(kLineSystems) +
+                        "[[parameter]]\nkind = \"xc_parameter\"\nterm = \"model:rational_c_1d\"\nfields = [\"a1\"]\n"
+                        "[[loss]]\nkind = \"energy\"\nsystem = \"He\"\ntarget = -2.2\n");
+  const auto r = s.cli("fit w.toml --output out --quiet");
+  EXPECT_EQ(r.rc, 3) << r.out << r.err;
+  EXPECT_NE(r.err.find("residual history"), std::string::npos) << r.err;
+  EXPECT_FALSE(s.exists("out")) << "a failed fit left its output folder behind";
+}
+
 // Runs `stillpoint fit ARGS` in `dir` and sends `sig` once the progress line of iteration
 // `after` has appeared on standard error (so the test does not depend on timing). Returns
 // the exit status and the standard error text.

@@ -95,8 +95,17 @@ int run_fit(const FitCommandOptions& o) {
   run.resume = o.resume;
   run.stop = &g_signal;
   run.observer = &progress;
+  // A run that fails before it has written anything leaves no empty folder behind.
+  const bool created = !fs::exists(dir);
   fs::create_directories(dir);
-  const sp::FitResult res = sp::run_fit(wf.spec, run);
+  sp::FitResult res;
+  try {
+    res = sp::run_fit(wf.spec, run);
+  } catch (...) {
+    std::error_code ec;
+    if (created && fs::is_empty(dir, ec)) fs::remove(dir, ec);
+    throw;
+  }
   if (res.termination == sp::FitResult::Termination::Interrupted) {
     const int sig = g_signal.load();
     std::cerr << "stillpoint: fit interrupted" << (sig == SIGTERM ? " (SIGTERM)" : sig == SIGINT ? " (SIGINT)" : "")
