@@ -166,10 +166,4 @@ std::string string_key(const std::string& file, const toml::table& t, const std:
   throw InputError(location(file, *n, join(path, key)), "expected a string");
 }
 
-std::string format_number(double v, int digits) {
-  char buf[40];
-  std::snprintf(buf, sizeof buf, "%.*g", digits, v);
-  return buf;
-}
-
 }  // namespace stillpoint::detail

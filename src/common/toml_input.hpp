@@ -8,6 +8,7 @@
 #include <string>
 #include <vector>
 
+#include "common/format.hpp"
 #include "stillpoint/common/errors.hpp"
 
 namespace stillpoint::detail {
@@ -71,8 +72,5 @@ bool bool_key(const std::string& file, const toml::table& t, const std::string& 
 /// `path.key` of `t` as a string, or `def` when absent.
 std::string string_key(const std::string& file, const toml::table& t, const std::string& path, const std::string& key,
                        const std::string& def);
-
-/// `v` with `digits` significant digits (printf %g), for messages.
-std::string format_number(double v, int digits);
 
 }  // namespace stillpoint::detail

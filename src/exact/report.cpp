@@ -10,6 +10,7 @@
 
 #include "common/toml_input.hpp"
 #include "ks/input_detail.hpp"
+#include "common/format.hpp"
 #include "stillpoint/exact/two_electron.hpp"
 
 namespace stillpoint {
@@ -18,14 +19,9 @@ namespace {
 
 namespace fs = std::filesystem;
 
-std::string fmt(const char* f, double v) {
-  char buf[64];
-  std::snprintf(buf, sizeof buf, f, v);
-  return buf;
-}
+std::string fmt(const char* f, double v) { return detail::printf_number(f, v); }
 
-/// Full precision, round-trip safe.
-std::string g17(double v) { return fmt("%.17g", v); }
+using detail::g17;
 
 double min_trusted_x(const ExactResult& r, bool lowest) {
   double best = lowest ? 1e300 : -1e300;

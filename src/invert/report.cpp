@@ -9,6 +9,7 @@
 
 #include "common/toml_input.hpp"
 #include "ks/input_detail.hpp"
+#include "common/format.hpp"
 #include "stillpoint/ks/atom_config.hpp"
 #include "stillpoint/invert/inversion.hpp"
 
@@ -148,17 +149,9 @@ InvertInput parse_root(const toml::table& root, const std::string& file) {
   return in;
 }
 
-std::string num(double v) {
-  char buf[40];
-  std::snprintf(buf, sizeof buf, "%.12e", v);
-  return buf;
-}
+std::string num(double v) { return detail::e12(v); }
 
-std::string g6(double v) {
-  char buf[40];
-  std::snprintf(buf, sizeof buf, "%.6g", v);
-  return buf;
-}
+using detail::g6;
 
 const char* form_name(const InversionOptions& o) {
   return o.form == InversionOptions::Form::Interacting ? "interacting" : "non_interacting";

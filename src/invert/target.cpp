@@ -1,6 +1,7 @@
 // Target densities of an inversion: reading a density table (any positions, one column per
 // spin or the total), putting it on the mesh, normalizing it to the occupations, and marking
 // where it can be trusted. Shared by both methods (wu_yang.cpp, direct.cpp).
+#include "common/format.hpp"
 #include "stillpoint/invert/inversion.hpp"
 #include "common/toml_input.hpp"
 
@@ -58,11 +59,7 @@ std::string lower(std::string s) {
 }
 
 
-std::string fmt(const char* f, double v) {
-  char buf[64];
-  std::snprintf(buf, sizeof buf, f, v);
-  return buf;
-}
+std::string fmt(const char* f, double v) { return detail::printf_number(f, v); }
 
 }  // namespace
 

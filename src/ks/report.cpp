@@ -5,6 +5,7 @@
 #include <nlohmann/json.hpp>
 #include <sstream>
 
+#include "common/format.hpp"
 #include "stillpoint/ks/atom_config.hpp"
 #include "stillpoint/common/atomic_file.hpp"
 #include "stillpoint/common/errors.hpp"
@@ -19,11 +20,7 @@ std::string spin_name(const KsProblem& P, int spin) {
   return spin == 0 ? "up" : "down";
 }
 
-std::string fmt(const char* f, double v) {
-  char buf[64];
-  std::snprintf(buf, sizeof buf, f, v);
-  return buf;
-}
+std::string fmt(const char* f, double v) { return detail::printf_number(f, v); }
 
 std::string system_line(const KsProblem& P) {
   const SystemSpec& s = P.spec();
