@@ -4,9 +4,17 @@
 
 #include <nlohmann/json.hpp>
 
+#include <array>
+#include <cstdio>
+#include <sstream>
+
 #include "cli_support.hpp"
+#include "stillpoint/response/gradient.hpp"
+#include "stillpoint/response/input.hpp"
 
 using clitest::Scratch;
+
+namespace sp = stillpoint;
 
 namespace {
 
@@ -87,7 +95,42 @@ reference = "ref.csv"
   ASSERT_EQ(r.rc, 0) << r.err;
   const std::string csv = s.read("out/A_potential_gradient.csv");
   EXPECT_NE(csv.find("x_bohr,dloss_dv_per_hartree"), std::string::npos);
-  EXPECT_GT(std::count(csv.begin(), csv.end(), '\n'), 200);
+  // Rows in parameter order: x, dL/dv_k, W_k.
+  std::vector<std::array<double, 3>> rows;
+  {
+    std::istringstream in(csv);
+    std::string line;
+    while (std::getline(in, line)) {
+      if (line.empty() || line[0] == '#' || line[0] == 'x') continue;
+      std::array<double, 3> v{};
+      ASSERT_EQ(std::sscanf(line.c_str(), "%lf,%lf,%lf", &v[0], &v[1], &v[2]), 3) << line;
+      rows.push_back(v);
+    }
+  }
+  // Central differences of the whole program (an SCF per point, tight tolerances) at nodes near
+  // the centre, the flank and the tail of the density.
+  const sp::GradInput in = sp::read_grad_input((s.dir() / "g.toml").string());
+  ASSERT_EQ(rows.size(), in.parameters.size());
+  sp::GradientProblem problem(in.base.systems, in.parameters, in.loss, in.options);
+  const Eigen::VectorXd theta = problem.initial_values();
+  sp::ScfOptions tight = in.base.scf;
+  tight.potential_tolerance = 1e-12;
+  tight.energy_tolerance = 1e-13;
+  tight.eigenvalue_tolerance = 1e-12;
+  int checked = 0;
+  for (double target : {0.0, -1.5, 4.0}) {
+    std::size_t p = 0;
+    for (std::size_t i = 1; i < rows.size(); ++i)
+      if (std::abs(rows[i][0] - target) < std::abs(rows[p][0] - target)) p = i;
+    const double h = 1e-4;
+    Eigen::VectorXd a = theta, b = theta;
+    a(p) += h;
+    b(p) -= h;
+    const double fd = (problem.loss(a, &tight) - problem.loss(b, &tight)) / (2.0 * h);
+    EXPECT_NEAR(rows[p][1], fd, 1e-6 * std::abs(fd) + 1e-9) << "node at x = " << rows[p][0];
+    ++checked;
+  }
+  EXPECT_EQ(checked, 3);
 }
 
 TEST(CliGrad, BadInputIsReportedWithLineAndKey) {

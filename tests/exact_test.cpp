@@ -258,20 +258,6 @@ TEST(ExactHelium, HarmonicWellCentreOfMassExcitation) {
 // The exact Kohn–Sham potential
 // ---------------------------------------------------------------------------------------
 
-TEST(ExactKsPotential, DiscreteIdentityHoldsByConstruction) {
-  // docs/theory.md §8: phi = sqrt(n/2) is an eigenvector of T~ + diag(v_s) with eigenvalue
-  // epsilon at every trusted node.
-  const auto& r = helium();
-  const Eigen::VectorXd& c = r.ks.orbital;
-  const Eigen::VectorXd Tc = sp::scaled_kinetic(r.mesh, 0) * c;
-  const int first = r.mesh.first_unknown();
-  for (int i = 0; i < c.size(); ++i)
-    if (r.ks.trusted[first + i]) {
-      EXPECT_NEAR(Tc(i) + r.ks.v_s(first + i) * c(i), r.ks.homo * c(i), 1e-12);
-    }
-  EXPECT_NEAR(c.squaredNorm(), 1.0, 1e-12);
-}
-
 TEST(ExactKsPotential, LowestStateReproducesTheDensity) {
   // Issue checks: the lowest eigenvector of T~ + diag(v_s), squared, equals n/2 where the
   // density is above 1e-6, and its eigenvalue is epsilon = -I = -0.75482185 (check-values §2,

@@ -369,6 +369,93 @@ TEST(FitRejection, FailedTrialPointIsRejectedAndLogged) {
 
 // Gauss–Newton errors: noisy manufactured data give finite errors and a symmetric
 // correlation matrix with unit diagonal.
+// A fit whose residuals are linear in its parameters, so that the Gauss–Newton covariance is
+// the closed-form least-squares one (any regression text; common practice): two non-interacting
+// harmonic traps on the line, ω_A and ω_B free, whose levels are ω (n + 1/2) and whose
+// two-electron energy is ω. With one scale for every term the residuals are r = (X θ − y) / σ,
+// θ̂ = (XᵀX)⁻¹ Xᵀ y and cov θ̂ = s² (XᵀX)⁻¹ with s² = RSS / (m − p).
+TEST(FitUncertainty, LinearLeastSquaresMatchesClosedForm) {
+  const std::string w = R"([fit]
+optimizer = "levenberg_marquardt"
+step_tolerance = 1e-15
+gradient_tolerance = 1e-15
+loss_tolerance = 1e-16
+[scf]
+potential_tolerance = 1e-12
+[[system]]
+name = "A"
+kind = "line"
+interacting = false
+charge = -2
+[[system.potential]]
+kind = "harmonic"
+omega = 1.0
+[[system]]
+name = "B"
+kind = "line"
+interacting = false
+charge = -2
+[[system.potential]]
+kind = "harmonic"
+omega = 1.4
+[[parameter]]
+kind = "harmonic"
+system = "A"
+fields = ["omega"]
+[[parameter]]
+kind = "harmonic"
+system = "B"
+fields = ["omega"]
+[[loss]]
+kind = "eigenvalue"
+system = "A"
+state = "1"
+target = 0.52
+scale = 0.01
+[[loss]]
+kind = "eigenvalue"
+system = "A"
+state = "2"
+target = 1.49
+scale = 0.01
+[[loss]]
+kind = "energy"
+system = "A"
+target = 1.03
+scale = 0.01
+[[loss]]
+kind = "eigenvalue"
+system = "B"
+state = "1"
+target = 0.71
+scale = 0.01
+[[loss]]
+kind = "energy_difference"
+system = "A"
+minus = "B"
+target = -0.4
+scale = 0.01
+)";
+  const sp::FitWorkflow wf = sp::parse_fit_workflow(w, "linear.toml");
+  const auto res = sp::run_fit(wf.spec);
+  ASSERT_TRUE(res.uncertainty.computed) << res.uncertainty.note;
+  Eigen::MatrixXd X(5, 2);
+  X << 0.5, 0.0, 1.5, 0.0, 1.0, 0.0, 0.0, 0.5, 1.0, -1.0;
+  Eigen::VectorXd y(5);
+  y << 0.52, 1.49, 1.03, 0.71, -0.4;
+  const Eigen::MatrixXd XtX_inv = (X.transpose() * X).inverse();
+  const Eigen::VectorXd theta = XtX_inv * X.transpose() * y;
+  const double s2 = (X * theta - y).squaredNorm() / (5 - 2);
+  const Eigen::MatrixXd cov = s2 * XtX_inv;
+  // The discretized trap levels equal ω (n + 1/2) to about 1e-10 hartree on the default grid.
+  EXPECT_NEAR(res.fitted(0), theta(0), 1e-8);
+  EXPECT_NEAR(res.fitted(1), theta(1), 1e-8);
+  for (int i = 0; i < 2; ++i)
+    EXPECT_NEAR(res.uncertainty.standard_error(i), std::sqrt(cov(i, i)), 1e-6 * std::sqrt(cov(i, i))) << i;
+  EXPECT_NEAR(res.uncertainty.correlation(0, 1), cov(0, 1) / std::sqrt(cov(0, 0) * cov(1, 1)), 1e-6);
+  EXPECT_EQ(res.uncertainty.degrees_of_freedom, 3);
+}
+
 TEST(FitUncertainty, GaussNewtonErrorsAndCorrelations) {
   sp::FitSpec spec = line_recovery_spec(sp::FitOptions::Optimizer::LevenbergMarquardt);
   spec.training[0].target = *spec.training[0].target + 2e-4;  // inconsistent data: nonzero residuals

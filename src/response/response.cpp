@@ -202,8 +202,11 @@ Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv) const {
       // Outside: (H - eps_i) psi = -P dv c_i in the complement, by projected preconditioned CG.
       Eigen::VectorXd rhs = -dvci;
       project(rhs);
-      const double bnorm = rhs.norm();
-      if (bnorm == 0.0) continue;
+      // The tolerance is relative to the perturbation dv c_i, not to its projection: where the
+      // computed states span dv c_i (x^2 times the lowest state of a harmonic trap lies in the
+      // span of its levels 0 and 2), the projection is rounding noise that no CG can reduce.
+      const double bnorm = dvci.norm();
+      if (!(rhs.norm() > I.opt.sternheimer_tolerance * bnorm)) continue;
       Eigen::VectorXd psi = Eigen::VectorXd::Zero(I.nu), r = rhs;
       Eigen::VectorXd z = d.precond->solve(r);
       project(z);
