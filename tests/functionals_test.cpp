@@ -92,6 +92,45 @@ TEST(Functionals, RefusalsNameTheReason) {
   EXPECT_EQ(refusal_of("lda_c_1d_csc", true), "");
 }
 
+// Correlation functionals whose minority-spin potential falls without bound as the spin
+// polarization approaches 1 have no ground state for open shells whose minority density decays
+// faster (Li); they are refused there, before the SCF, and accepted for closed shells and for an
+// empty spin. PBE's minority potential rises instead (a barrier): accepted.
+TEST(Functionals, OpenShellRefusalFollowsTheMinorityPotential) {
+  for (const char* c : {"lda_c_ml1", "gga_c_op_b88", "lda_c_pk09"}) {
+    try {
+      const sp::KsProblem P(atom(3, {"lda_x", c}, true));
+      ADD_FAILURE() << c << " accepted for polarized Li";
+    } catch (const sp::InputError& e) {
+      const std::string what = e.what();
+      EXPECT_NE(what.find("falls without bound"), std::string::npos) << what;
+      EXPECT_NE(what.find("2 up and 1 down"), std::string::npos) << what;
+    }
+    EXPECT_NO_THROW((void)sp::KsProblem(atom(3, {"lda_x", c}, false))) << c << " unpolarized";
+    EXPECT_NO_THROW((void)sp::KsProblem(atom(1, {"lda_x", c}, true))) << c << " with an empty spin";
+  }
+  for (const char* c : {"gga_c_pbe", "lda_c_pw", "gga_c_lyp", "lda_c_vwn"})
+    EXPECT_NO_THROW((void)sp::KsProblem(atom(3, {"lda_x", c}, true))) << c;
+}
+
+// A level of an empty spin sits in the functional's potential at zero density of that spin:
+// regular for PW92 (it settles and is a result), singular for OP (it is reported as unsettled
+// and does not hold up the SCF of the occupied level).
+TEST(Functionals, EmptySpinLevelsSayWhetherTheySettled) {
+  const sp::KsSolution pw = sp::solve_scf(sp::KsProblem(atom(1, {"lda_x", "lda_c_pw"}, true)));
+  const sp::KsSolution op = sp::solve_scf(sp::KsProblem(atom(1, {"lda_x", "gga_c_op_b88"}, true)));
+  for (const auto* S : {&pw, &op}) ASSERT_EQ(S->levels.size(), 2u);
+  EXPECT_TRUE(pw.levels[0].settled);
+  EXPECT_TRUE(pw.levels[1].settled);
+  EXPECT_TRUE(op.levels[0].settled);
+  EXPECT_FALSE(op.levels[1].settled) << op.levels[1].energy;
+  // The occupied level: OP correlation vanishes for a fully polarized density (its energy is
+  // opposite-spin only), so polarized H is Slater exchange alone (common practice as a check).
+  const sp::KsSolution x = sp::solve_scf(sp::KsProblem(atom(1, {"lda_x"}, true)));
+  EXPECT_NEAR(op.levels[0].energy, x.levels[0].energy, 1e-8);
+  EXPECT_NEAR(op.energy.total, x.energy.total, 1e-8);
+}
+
 // The most used functionals (exchange and correlation parts each, correlation paired with
 // Slater exchange) converge with every default on He, N (polarized), Ne and Ar.
 TEST(Functionals, CommonOnesConvergeWithDefaults) {

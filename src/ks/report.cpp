@@ -78,8 +78,8 @@ std::string format_solution(const KsProblem& P, const KsSolution& S) {
   o << "  levels (hartree)\n    state  spin  occupation          energy\n";
   for (const Level& lv : S.levels) {
     char buf[128];
-    std::snprintf(buf, sizeof buf, "    %-5s  %-4s  %10.6f  %14.9f\n", lv.label.c_str(), spin_name(P, lv.spin).c_str(),
-                  lv.occupation, lv.energy);
+    std::snprintf(buf, sizeof buf, "    %-5s  %-4s  %10.6f  %14.9f%s\n", lv.label.c_str(), spin_name(P, lv.spin).c_str(),
+                  lv.occupation, lv.energy, lv.settled ? "" : "  (did not settle: empty spin, singular potential)");
     o << buf;
   }
   return o.str();
@@ -115,7 +115,8 @@ std::string solution_json(const KsProblem& P, const KsSolution& S) {
                       {"spin", spin_name(P, lv.spin)},
                       {"l", lv.l},
                       {"occupation", lv.occupation},
-                      {"energy", lv.energy}});
+                      {"energy", lv.energy},
+                      {"settled", lv.settled}});
   j["levels"] = levels;
   // Per term of the XC sum, and the exchange and correlation parts they add up to.
   json terms = json::array();

@@ -123,6 +123,10 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
   int best_iteration = 0, restarts = 0;
   double mixing = opt.mixing;
   std::vector<std::string> restart_notes;
+  double spin_electrons[2] = {0.0, 0.0};
+  for (const Channel& ch : P.channels())
+    for (double f : ch.occupations) spin_electrons[ch.spin] += f;
+  std::vector<double> empty_spin_change(P.channels().size(), 0.0);
   auto history_lines = [&]() {
     std::vector<std::string> lines{"SCF residual history:"};
     for (const auto& h : history) lines.push_back(format_step(h));
@@ -188,16 +192,17 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     step.residual = std::sqrt(r2);
     step.eigenvalue_change = 0.0;
     if (!prev_eps.empty()) {
-      // Occupied levels only: they define the density and the energy. An empty level of an
-      // empty spin channel (polarized H's 1s down) sits in a potential that some correlation
-      // functionals make singular where that spin's density vanishes (OP, ML, PK09: v ~ n^(-1/3)),
-      // so it never settles, and it changes nothing that the SCF computes.
+      // Every computed level counts, except those of a spin with no electrons at all (polarized
+      // H's 1s down): their potential is the functional's derivative at zero density of that
+      // spin, which some correlation functionals make singular (OP, ML, PK09: v ~ n^(-1/3)), so
+      // they may never settle while changing nothing the SCF computes. They are reported with
+      // Level::settled saying whether they did.
       for (std::size_t c = 0; c < m.states.size(); ++c) {
-        const auto& occ = P.channels()[c].occupations;
-        for (std::size_t i = 0; i < occ.size() && i < static_cast<std::size_t>(m.states[c].energies.size()); ++i)
-          if (occ[i] > 0.0)
-            step.eigenvalue_change =
-                std::max(step.eigenvalue_change, std::abs(m.states[c].energies(i) - prev_eps[c](i)));
+        const double change = (m.states[c].energies - prev_eps[c]).cwiseAbs().maxCoeff();
+        if (spin_electrons[P.channels()[c].spin] > 0.0)
+          step.eigenvalue_change = std::max(step.eigenvalue_change, change);
+        else
+          empty_spin_change[c] = change;
       }
     } else {
       step.eigenvalue_change = std::numeric_limits<double>::infinity();
@@ -251,6 +256,9 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       sol.warm = warm;
       sol.iterations = it;
       sol.levels = labelled_levels(P, sol.states);
+      for (Level& lv : sol.levels)
+        if (!(spin_electrons[P.channels()[lv.channel].spin] > 0.0))
+          lv.settled = empty_spin_change[lv.channel] < opt.eigenvalue_tolerance;
       return sol;
     }
     // Pulay / DIIS extrapolation with a restart safeguard when the residual blows up.

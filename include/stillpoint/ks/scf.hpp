@@ -16,7 +16,8 @@ struct ScfOptions {
   /// ... and the total energy changed by less than this between iterations (hartree) ...
   double energy_tolerance = 1e-10;
   /// ... and no computed eigenvalue changed by more than this (hartree). This also converges
-  /// unoccupied levels that are reported, which the density weighting alone would not.
+  /// unoccupied levels that are reported, which the density weighting alone would not; levels
+  /// of a spin without electrons are exempt (Level::settled reports whether they settled).
   double eigenvalue_tolerance = 1e-9;
   /// Pulay (DIIS) mixing: fraction of the extrapolated residual added to the extrapolated input.
   double mixing = 0.5;
@@ -40,7 +41,7 @@ struct ScfStep {
   int iteration = 0;
   double energy = 0.0;
   double residual = 0.0;           ///< density-weighted RMS of v_out - v_in, hartree
-  double eigenvalue_change = 0.0;  ///< max |change| of an occupied level's eigenvalue, hartree
+  double eigenvalue_change = 0.0;  ///< max |change| of a level's eigenvalue (spins with electrons), hartree
 };
 
 struct Level {
@@ -51,6 +52,10 @@ struct Level {
   int l = 0;
   double energy = 0.0;      ///< hartree
   double occupation = 0.0;  ///< electrons
+  /// false for a level of a spin without electrons whose eigenvalue still changed by more than
+  /// the eigenvalue tolerance at convergence: the functional's potential for an empty spin is
+  /// singular there, so the value is not a converged result.
+  bool settled = true;
 };
 
 struct KsSolution {
