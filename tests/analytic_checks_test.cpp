@@ -228,6 +228,34 @@ TEST(AnalyticChecks, LdaExchangeOfHydrogenic1sDensity) {
   }
 }
 
+// GGA exchange and LDA correlation of the exact hydrogen 1s density, by the program's own mesh
+// quadrature and libxc, against values computed independently (check-values §4c,
+// [computed]: a separate quadrature of the same functional forms). B88 on this density is also
+// in A. D. Becke, PRA 38, 3098 (1988), Table I: -0.3098 [recalled].
+TEST(AnalyticChecks, GgaAndCorrelationOfHydrogen1sDensity) {
+  const sp::MeshSpec spec = sp::grid_preset(sp::Geometry::Radial, "default");
+  const sp::Mesh mesh = sp::Mesh::radial(spec, 1.0);
+  const Eigen::VectorXd n = hydrogenic_1s_density(mesh, 1.0);
+  const Eigen::VectorXd zero = Eigen::VectorXd::Zero(mesh.num_nodes());
+  struct Case {
+    const char* name;
+    bool polarized;
+    double value;
+  };
+  sp::XcSettings xs;
+  for (const Case& c : {Case{"gga_x_b88", true, -0.309756}, Case{"gga_x_pbe", true, -0.3059406},
+                        Case{"lda_c_pw", true, -0.0221840}, Case{"lda_c_vwn", true, -0.0221422},
+                        Case{"lda_c_pz", true, -0.0223272}, Case{"gga_x_pbe", false, -0.2539957},
+                        Case{"lda_c_pw", false, -0.0413915}, Case{"lda_c_vwn", false, -0.0414115},
+                        Case{"lda_c_pz", false, -0.0416192}}) {
+    const sp::XcFunctional f = sp::make_functional({c.name}, xs);
+    const double e = c.polarized ? sp::evaluate_xc(mesh, f, {n, zero}, 1e-30).energy
+                                 : sp::evaluate_xc(mesh, f, {n}, 1e-30).energy;
+    // The references carry 6-7 digits: agreement to the last printed digit.
+    EXPECT_NEAR(e, c.value, 1e-6) << c.name << (c.polarized ? " polarized" : " unpolarized");
+  }
+}
+
 // ---------------------------------------------------------------------------------------------
 // Exchange-only LDA: for a Coulomb system whose exchange scales as E_x[n_lambda] = lambda E_x[n],
 // the self-consistent solution obeys the virial theorem 2 T_s + V = 0, i.e. E = -T_s.
