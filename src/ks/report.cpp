@@ -79,7 +79,7 @@ std::string format_solution(const KsProblem& P, const KsSolution& S) {
   for (const Level& lv : S.levels) {
     char buf[128];
     std::snprintf(buf, sizeof buf, "    %-5s  %-4s  %10.6f  %14.9f%s\n", lv.label.c_str(), spin_name(P, lv.spin).c_str(),
-                  lv.occupation, lv.energy, lv.settled ? "" : "  (did not settle: empty spin, singular potential)");
+                  lv.occupation, lv.energy, lv.settled ? "" : "  (did not settle: unoccupied, felt by no electron)");
     o << buf;
   }
   return o.str();

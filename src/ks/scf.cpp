@@ -126,7 +126,12 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
   double spin_electrons[2] = {0.0, 0.0};
   for (const Channel& ch : P.channels())
     for (double f : ch.occupations) spin_electrons[ch.spin] += f;
-  std::vector<double> empty_spin_change(P.channels().size(), 0.0);
+  std::vector<Eigen::VectorXd> level_change(P.channels().size());
+  // Unoccupied levels get kUnoccupiedGrace iterations to settle once everything else has
+  // converged; a level that still moves then (its potential weighted by no electron, e.g. Li's
+  // 2s down with some GGAs) is reported with settled = false instead of failing the SCF.
+  constexpr int kUnoccupiedGrace = 50;
+  int rest_converged_since = 0;
   auto history_lines = [&]() {
     std::vector<std::string> lines{"SCF residual history:"};
     for (const auto& h : history) lines.push_back(format_step(h));
@@ -191,21 +196,26 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     step.energy = m.energy.total;
     step.residual = std::sqrt(r2);
     step.eigenvalue_change = 0.0;
+    double occupied_change = 0.0;
     if (!prev_eps.empty()) {
       // Every computed level counts, except those of a spin with no electrons at all (polarized
       // H's 1s down): their potential is the functional's derivative at zero density of that
       // spin, which some correlation functionals make singular (OP, ML, PK09: v ~ n^(-1/3)), so
-      // they may never settle while changing nothing the SCF computes. They are reported with
-      // Level::settled saying whether they did.
+      // they may never settle while changing nothing the SCF computes. Occupied levels must
+      // settle; unoccupied ones get a grace period (below). Level::settled says which did.
       for (std::size_t c = 0; c < m.states.size(); ++c) {
-        const double change = (m.states[c].energies - prev_eps[c]).cwiseAbs().maxCoeff();
-        if (spin_electrons[P.channels()[c].spin] > 0.0)
-          step.eigenvalue_change = std::max(step.eigenvalue_change, change);
-        else
-          empty_spin_change[c] = change;
+        const auto& occ = P.channels()[c].occupations;
+        level_change[c] = (m.states[c].energies - prev_eps[c]).cwiseAbs();
+        for (int i = 0; i < level_change[c].size(); ++i) {
+          const bool occupied = i < static_cast<int>(occ.size()) && occ[i] > 0.0;
+          if (spin_electrons[P.channels()[c].spin] > 0.0)
+            step.eigenvalue_change = std::max(step.eigenvalue_change, level_change[c](i));
+          if (occupied) occupied_change = std::max(occupied_change, level_change[c](i));
+        }
       }
     } else {
       step.eigenvalue_change = std::numeric_limits<double>::infinity();
+      occupied_change = std::numeric_limits<double>::infinity();
     }
     if (!std::isfinite(step.energy) || !std::isfinite(step.residual)) {
       if (best_iteration == 0)
@@ -237,9 +247,13 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       restart(it, what.str());
       continue;
     }
-    const bool converged = step.residual < opt.potential_tolerance &&
-                           std::abs(step.energy - prev_energy) < opt.energy_tolerance &&
-                           step.eigenvalue_change < opt.eigenvalue_tolerance;
+    const bool rest_converged = step.residual < opt.potential_tolerance &&
+                                std::abs(step.energy - prev_energy) < opt.energy_tolerance &&
+                                occupied_change < opt.eigenvalue_tolerance;
+    if (!rest_converged) rest_converged_since = 0;
+    else if (rest_converged_since == 0) rest_converged_since = it;
+    const bool converged = rest_converged && (step.eigenvalue_change < opt.eigenvalue_tolerance ||
+                                              it - rest_converged_since >= kUnoccupiedGrace);
     prev_eps.clear();
     for (const auto& st : m.states) prev_eps.push_back(st.energies);
     prev_energy = step.energy;
@@ -257,8 +271,8 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       sol.iterations = it;
       sol.levels = labelled_levels(P, sol.states);
       for (Level& lv : sol.levels)
-        if (!(spin_electrons[P.channels()[lv.channel].spin] > 0.0))
-          lv.settled = empty_spin_change[lv.channel] < opt.eigenvalue_tolerance;
+        if (lv.index < level_change[lv.channel].size())
+          lv.settled = level_change[lv.channel](lv.index) < opt.eigenvalue_tolerance;
       return sol;
     }
     // Pulay / DIIS extrapolation with a restart safeguard when the residual blows up.

@@ -1,6 +1,7 @@
 #include "stillpoint/response/gradient.hpp"
 
 #include <algorithm>
+#include <memory>
 #include <chrono>
 #include <cmath>
 #include <sstream>
@@ -231,12 +232,16 @@ Eigen::VectorXd default_fd_steps(const std::vector<ParameterRef>& params, const 
 }
 
 Eigen::VectorXd parameter_values(const std::vector<SystemSpec>& systems, const std::vector<ParameterRef>& params) {
+  // One working copy per system, made on first use: field_ref may fill defaults (a zero grid
+  // potential on the mesh, a family's default parameters), and a copy or a mesh per parameter
+  // made this O(P^2) for hundreds of grid or Gaussian parameters.
   Eigen::VectorXd v(params.size());
+  std::vector<std::unique_ptr<SystemSpec>> copies(systems.size());
   for (std::size_t i = 0; i < params.size(); ++i) {
     const int s = params[i].system < 0 ? 0 : params[i].system;
     if (s >= static_cast<int>(systems.size())) throw InputError("parameter '" + params[i].name + "' names a missing system");
-    SystemSpec copy = systems[s];
-    v(i) = field_ref(copy, params[i]);
+    if (!copies[s]) copies[s] = std::make_unique<SystemSpec>(systems[s]);
+    v(i) = field_ref(*copies[s], params[i]);
   }
   return v;
 }

@@ -16,8 +16,9 @@ struct ScfOptions {
   /// ... and the total energy changed by less than this between iterations (hartree) ...
   double energy_tolerance = 1e-10;
   /// ... and no computed eigenvalue changed by more than this (hartree). This also converges
-  /// unoccupied levels that are reported, which the density weighting alone would not; levels
-  /// of a spin without electrons are exempt (Level::settled reports whether they settled).
+  /// unoccupied levels that are reported, which the density weighting alone would not. Levels
+  /// of a spin without electrons are exempt, and an unoccupied level that has not settled 50
+  /// iterations after everything else did is reported with Level::settled = false.
   double eigenvalue_tolerance = 1e-9;
   /// Pulay (DIIS) mixing: fraction of the extrapolated residual added to the extrapolated input.
   double mixing = 0.5;
@@ -52,9 +53,9 @@ struct Level {
   int l = 0;
   double energy = 0.0;      ///< hartree
   double occupation = 0.0;  ///< electrons
-  /// false for a level of a spin without electrons whose eigenvalue still changed by more than
-  /// the eigenvalue tolerance at convergence: the functional's potential for an empty spin is
-  /// singular there, so the value is not a converged result.
+  /// false for an unoccupied level whose eigenvalue still changed by more than the eigenvalue
+  /// tolerance at convergence (its potential is felt by no electron and, for some functionals,
+  /// singular where that spin's density vanishes): the value is not a converged result.
   bool settled = true;
 };
 
