@@ -9,6 +9,7 @@
 #include <sstream>
 
 #include "stillpoint/common/errors.hpp"
+#include "stillpoint/numerics/band_lu.hpp"
 
 extern "C" {
 // LAPACK banded Cholesky (gfortran ABI: hidden length of the character argument last).
@@ -108,37 +109,24 @@ int LowestEigensolver::size() const { return static_cast<int>(impl_->T.rows()); 
 
 namespace {
 
-extern "C" {
-void dgbtrf_(const int* m, const int* n, const int* kl, const int* ku, double* ab, const int* ldab, int* ipiv, int* info);
-void dgbtrs_(const char* trans, const int* n, const int* kl, const int* ku, const int* nrhs, const double* ab,
-             const int* ldab, const int* ipiv, double* b, const int* ldb, int* info, std::size_t);
-}
-
 // Banded LU with partial pivoting of H - mu: stable for the nearly singular shifts that make
-// inverse iteration converge in one or two steps.
+// inverse iteration converge in one or two steps (numerics/band_lu.hpp: LAPACK's algorithm
+// without its per-column BLAS calls).
 struct BandLu {
   int n = 0, kd = 0;
-  Eigen::MatrixXd ab;
-  std::vector<int> ipiv;
+  BandLuFactor f;
   bool factor(const SpMat& H, double mu) {
-    const int ld = 3 * kd + 1;
-    ab.setZero(ld, n);
-    ipiv.assign(n, 0);
+    f.reset(n, kd, kd);
     for (int j = 0; j < H.outerSize(); ++j)
       for (SpMat::InnerIterator it(H, j); it; ++it) {
         const int i = static_cast<int>(it.row());
         if (std::abs(i - j) > kd) continue;
-        ab(2 * kd + i - j, j) = it.value() - (i == j ? mu : 0.0);
+        f.at(i, j) = it.value() - (i == j ? mu : 0.0);
       }
-    int info = 0;
-    dgbtrf_(&n, &n, &kd, &kd, ab.data(), &ld, ipiv.data(), &info);
-    return info >= 0;  // info > 0: exactly singular pivot; solves still give a huge eigenvector-rich vector
+    f.factor();  // an exactly singular pivot still gives a huge, eigenvector-rich solve
+    return true;
   }
-  void solve(Eigen::VectorXd& b) const {
-    const int ld = 3 * kd + 1, nrhs = 1;
-    int info = 0;
-    dgbtrs_("N", &n, &kd, &kd, &nrhs, ab.data(), &ld, ipiv.data(), b.data(), &n, &info, 1);
-  }
+  void solve(Eigen::VectorXd& b) const { f.solve(b.data()); }
 };
 
 }  // namespace
