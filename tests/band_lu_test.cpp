@@ -9,6 +9,9 @@
 
 extern "C" {
 void dgbtrf_(const int* m, const int* n, const int* kl, const int* ku, double* ab, const int* ldab, int* ipiv, int* info);
+void dpbtrf_(const char* uplo, const int* n, const int* kd, double* ab, const int* ldab, int* info, std::size_t);
+void dpbtrs_(const char* uplo, const int* n, const int* kd, const int* nrhs, const double* ab, const int* ldab,
+             double* b, const int* ldb, int* info, std::size_t);
 void dgbtrs_(const char* trans, const int* n, const int* kl, const int* ku, const int* nrhs, const double* ab,
              const int* ldab, const int* ipiv, double* b, const int* ldb, int* info, std::size_t);
 }
@@ -76,4 +79,26 @@ TEST(BandLu, AgreesWithLapack) {
       }
     }
   }
+}
+
+// The banded Cholesky solve against LAPACK's dpbtrs on the same dpbtrf factor.
+TEST(BandLu, CholeskySolveAgreesWithLapack) {
+  for (int n : {5, 97, 433})
+    for (int kd : {1, 8, 12}) {
+      Eigen::MatrixXd A = band_matrix(n, kd, kd, 3u, false);
+      A = (A * A.transpose()).eval();  // positive definite, bandwidth 2 kd
+      const int k2 = std::min(2 * kd, n - 1), ld = k2 + 1;
+      std::vector<double> ab(static_cast<std::size_t>(ld) * n, 0.0);
+      for (int j = 0; j < n; ++j)
+        for (int i = std::max(0, j - k2); i <= j; ++i) ab[(k2 + i - j) + static_cast<std::size_t>(j) * ld] = A(i, j);
+      int info = 0;
+      dpbtrf_("U", &n, &k2, ab.data(), &ld, &info, 1);
+      ASSERT_EQ(info, 0);
+      Eigen::VectorXd b = Eigen::VectorXd::LinSpaced(n, 1.0, -3.0), x = b, y = b;
+      stillpoint::band_cholesky_solve(ab.data(), n, k2, x.data());
+      int nrhs = 1;
+      dpbtrs_("U", &n, &k2, &nrhs, ab.data(), &ld, y.data(), &n, &info, 1);
+      EXPECT_LE((x - y).norm(), 1e-12 * y.norm()) << "n = " << n << ", kd = " << k2;
+      EXPECT_LE((A * x - b).norm(), 1e-9 * b.norm() * A.norm()) << "n = " << n;
+    }
 }

@@ -100,7 +100,39 @@ std::vector<Level> labelled_levels(const KsProblem& P, const std::vector<Channel
   return levels;
 }
 
+namespace {
+KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSolution* start);
+}
+
+// A GGA whose SCF diverges from the default start gets one more attempt from the converged LDA
+// solution of the same system: early iterates of a crude start can have density tails with
+// orbital nodes, where GGA potentials such as P86's reach 1e6 hartree and dig wells that trap
+// ghost states (B88 + P86 on Ar). The LDA start has none. Only the path changes; the result
+// is the same fixed point, and a failure of the retry reports the first attempt's error.
 KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution* start) {
+  try {
+    return solve_scf_from(P, opt, start);
+  } catch (const NumericalError& first) {
+    const bool diverged = std::string(first.what()).find("SCF diverged") != std::string::npos;
+    if (start || !diverged || !P.xc().needs_gradient()) throw;
+    SystemSpec lda = P.spec();
+    const bool line = lda.geometry == Geometry::Line;
+    lda.xc = line ? std::vector<std::string>{"lda_x_1d_soft"} : std::vector<std::string>{"lda_x", "lda_c_pw"};
+    lda.xc_weights.clear();
+    lda.xc_parameters.clear();
+    try {
+      const KsProblem Q(lda);
+      const KsSolution base = solve_scf_from(Q, opt, nullptr);
+      if (opt.verbose) std::fprintf(stderr, "  SCF diverged; starting again from the converged LDA solution\n");
+      return solve_scf_from(P, opt, &base);
+    } catch (const std::exception&) {
+      throw first;
+    }
+  }
+}
+
+namespace {
+KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSolution* start) {
   const int ns = P.nspin();
   const Eigen::VectorXd& W = P.mesh().density_weight();
   std::vector<Eigen::VectorXd> v_in = start ? start->v_s : P.initial_potential();
@@ -287,7 +319,14 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       best_warm = warm;
     }
     hist_v.push_back(vin);
-    hist_r.push_back(res);
+    // The mixing sees the residual clipped to 10 (1 + |v_in|) hartree per node: a transient
+    // density can make a GGA's potential enormous where almost no electron is (B88 + P86 on Ar:
+    // -1.7e6 Ha at r = 51 bohr, n = 5e-24 in the second iteration), and any fraction of that
+    // would drown every state in one spike. Only the path changes: at the fixed point the
+    // residual is zero, and convergence is judged on the unclipped residual.
+    const Eigen::VectorXd limit = 10.0 * (1.0 + vin.array().abs());
+    const Eigen::VectorXd res_mix = res.cwiseMax(-limit).cwiseMin(limit);
+    hist_r.push_back(res_mix);
     if (static_cast<int>(hist_v.size()) > std::max(1, opt.history)) {
       hist_v.erase(hist_v.begin());
       hist_r.erase(hist_r.begin());
@@ -295,7 +334,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
     const int k = static_cast<int>(hist_v.size());
     Eigen::VectorXd next;
     if (k == 1) {
-      next = vin + mixing * res;
+      next = vin + mixing * res_mix;
     } else {
       Eigen::MatrixXd A = Eigen::MatrixXd::Zero(k + 1, k + 1);
       Eigen::VectorXd rhs = Eigen::VectorXd::Zero(k + 1);
@@ -310,7 +349,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       const Eigen::VectorXd c = A.colPivHouseholderQr().solve(rhs);
       next = Eigen::VectorXd::Zero(vin.size());
       for (int i = 0; i < k; ++i) next += c(i) * (hist_v[i] + mixing * hist_r[i]);
-      if (!next.allFinite()) next = vin + mixing * res;
+      if (!next.allFinite()) next = vin + mixing * res_mix;
     }
     v_in = unstack(next, ns);
   }
@@ -329,5 +368,6 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
   msg << "); try more iterations, a smaller mixing, looser tolerances or a different grid";
   throw NumericalError(msg.str(), lines);
 }
+}  // namespace
 
 }  // namespace stillpoint

@@ -67,4 +67,49 @@ void BandLuFactor::solve(double* b) const {
   }
 }
 
+int band_count_below(const std::vector<double>& lower, int n, int kd, double x) {
+  const int L = kd + 1;
+  // W(i, j) for i >= j, j >= i - kd: the unit lower factor times D (row i of L D), kept in a
+  // rolling band so the update is the row form of the Cholesky-like recurrence.
+  std::vector<double> d(n), l(static_cast<std::size_t>(L) * n, 0.0);  // l[(i - j) + j * L] = L(i, j)
+  int negative = 0;
+  double scale = 0.0;
+  for (int j = 0; j < n; ++j) scale = std::max(scale, std::abs(lower[static_cast<std::size_t>(j) * L] - x));
+  const double tiny = 1e-300 + 1e-15 * scale;
+  for (int j = 0; j < n; ++j) {
+    const int k0 = std::max(0, j - kd);
+    double dj = lower[static_cast<std::size_t>(j) * L] - x;
+    for (int k = k0; k < j; ++k) {
+      const double ljk = l[(j - k) + static_cast<std::size_t>(k) * L];
+      dj -= ljk * ljk * d[k];
+    }
+    if (dj == 0.0 || std::abs(dj) < tiny) dj = tiny;  // an eigenvalue at x counts as above it
+    d[j] = dj;
+    if (dj < 0.0) ++negative;
+    const int i1 = std::min(n - 1, j + kd);
+    for (int i = j + 1; i <= i1; ++i) {
+      double a = lower[(i - j) + static_cast<std::size_t>(j) * L];
+      for (int k = std::max(0, i - kd); k < j; ++k)
+        a -= l[(i - k) + static_cast<std::size_t>(k) * L] * l[(j - k) + static_cast<std::size_t>(k) * L] * d[k];
+      l[(i - j) + static_cast<std::size_t>(j) * L] = a / dj;
+    }
+  }
+  return negative;
+}
+
+void band_cholesky_solve(const double* ab, int n, int kd, double* b) {
+  const int L = kd + 1;
+  auto U = [&](int i, int j) { return ab[(kd + i - j) + static_cast<std::size_t>(j) * L]; };
+  for (int j = 0; j < n; ++j) {  // U^T y = b
+    double s = b[j];
+    for (int i = std::max(0, j - kd); i < j; ++i) s -= U(i, j) * b[i];
+    b[j] = s / U(j, j);
+  }
+  for (int j = n - 1; j >= 0; --j) {  // U x = y
+    b[j] /= U(j, j);
+    const double xj = b[j];
+    for (int i = std::max(0, j - kd); i < j; ++i) b[i] -= U(i, j) * xj;
+  }
+}
+
 }  // namespace stillpoint

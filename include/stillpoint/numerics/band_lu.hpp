@@ -27,4 +27,15 @@ struct BandLuFactor {
   void solve(double* b) const;
 };
 
+/// Number of eigenvalues of the symmetric band matrix A below x, by Sylvester's law of inertia
+/// on A - x = L D L^T (no pivoting; a pivot that vanishes exactly is moved off zero, which
+/// counts an eigenvalue at x as above it). `lower` holds the lower band column-major,
+/// lower[(i - j) + j * (kd + 1)] = A(i, j) for 0 <= i - j <= kd. O(n kd^2).
+int band_count_below(const std::vector<double>& lower, int n, int kd, double x);
+
+/// Solves A x = b in place from LAPACK dpbtrf's upper factor U (A = U^T U), stored as
+/// ab[(kd + i - j) + j * (kd + 1)] for the band of U: the same as dpbtrs, without its
+/// per-column BLAS calls (OpenBLAS's tbsv issues one axpy per column).
+void band_cholesky_solve(const double* ab, int n, int kd, double* b);
+
 }  // namespace stillpoint

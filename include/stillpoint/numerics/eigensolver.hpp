@@ -2,10 +2,12 @@
 // Lowest eigenpairs of the symmetric banded Kohn–Sham matrices.
 //
 // The matrices are H = T + diag(d), with T the (scaled) kinetic part whose sparsity never
-// changes during an SCF. Sparse path: shift-invert Lanczos (Spectra) with a sparse LDL^T
-// factorization below the spectrum, where H - sigma is positive definite; Sylvester inertia
-// of that factorization proves no low state was missed. Dense path (small grids): LAPACK
-// through Armadillo, the only place the library uses Armadillo.
+// changes during an SCF. Sparse path, cold: bisection on Sylvester inertia (band LDL^T counts)
+// brackets each wanted eigenvalue, shifted inverse iteration refines it; shift-invert Lanczos
+// (Spectra) below the spectrum is the fallback. Warm (SCF): inverse iteration from the previous
+// pairs. Every result is proved complete by inertia: H - low positive definite and exactly
+// `count` eigenvalues below just above the highest. Dense path (small grids): LAPACK through
+// Armadillo, the only place the library uses Armadillo.
 #include <Eigen/Dense>
 #include <Eigen/Sparse>
 #include <limits>
