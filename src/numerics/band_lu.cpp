@@ -71,7 +71,10 @@ int band_count_below(const std::vector<double>& lower, int n, int kd, double x) 
   const int L = kd + 1;
   // W(i, j) for i >= j, j >= i - kd: the unit lower factor times D (row i of L D), kept in a
   // rolling band so the update is the row form of the Cholesky-like recurrence.
-  std::vector<double> d(n), l(static_cast<std::size_t>(L) * n, 0.0);  // l[(i - j) + j * L] = L(i, j)
+  // Reused between calls of one thread: bisection calls this tens of times per solve.
+  thread_local std::vector<double> d, l;  // l[(i - j) + j * L] = L(i, j)
+  d.resize(n);
+  l.resize(static_cast<std::size_t>(L) * n);
   int negative = 0;
   double scale = 0.0;
   for (int j = 0; j < n; ++j) scale = std::max(scale, std::abs(lower[static_cast<std::size_t>(j) * L] - x));

@@ -197,18 +197,33 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
         if (i >= j && i - j <= kd) band[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = it.value();
       }
     auto below = [&](double x) { return band_count_below(band, nn, kd, x); };
+    // The previous solve's bound, when inertia confirms it, saves the bisection the distance
+    // from the proven bound (min diagonal, thousands of hartree below near a nucleus).
+    if (std::isfinite(warm.lower_bound) && warm.lower_bound > lo && below(warm.lower_bound) == 0) lo = warm.lower_bound;
     double hi = lo + std::max(1.0, 1e-3 * std::abs(lo));
     for (int guard = 0; below(hi) < cnt; ++guard) {
       if (guard > 80) return false;
       hi = lo + 2.0 * (hi - lo);
     }
+    // Bisect until each bracket holds exactly its own eigenvalue and is narrow (1e-4 relative):
+    // inverse iteration from its middle then gains four digits or more per step, and a result
+    // inside the bracket can only be that eigenvalue.
     std::vector<double> a(cnt, lo), b(cnt, hi);
+    std::vector<int> ca(cnt, 0), cb(cnt, below(hi));
     for (int k = 0; k < cnt; ++k) {
-      for (int steps = 0; b[k] - a[k] > 1e-9 * (1.0 + std::max(std::abs(a[k]), std::abs(b[k]))); ++steps) {
+      for (int steps = 0;
+           ca[k] != k || cb[k] != k + 1 || b[k] - a[k] > 1e-4 * (1.0 + std::max(std::abs(a[k]), std::abs(b[k])));
+           ++steps) {
         if (steps > 200) return false;
         const double mid = 0.5 * (a[k] + b[k]);
         const int c = below(mid);
-        for (int j = k; j < cnt; ++j) (c > j ? b[j] : a[j]) = mid;
+        for (int j = k; j < cnt; ++j) {
+          if (c > j) {
+            if (mid < b[j]) b[j] = mid, cb[j] = c;
+          } else if (mid > a[j]) {
+            a[j] = mid, ca[j] = c;
+          }
+        }
       }
     }
     BandLu lu;
@@ -228,7 +243,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
       if (!refine(lu, mu, x, out, k, rho, 1)) return false;
       // Inverse iteration may slide to a neighbour in a tight cluster: the value must be the
       // k-th eigenvalue, inside its own bracket.
-      const double slack = 1e-8 * (1.0 + std::abs(rho));
+      const double slack = 1e-12 * (1.0 + std::abs(rho));
       if (rho < a[k] - slack || rho > b[k] + slack) return false;
       out.values(k) = rho;
       out.vectors.col(k) = x;
