@@ -186,3 +186,21 @@ def test_docstrings_are_useful():
     for f in (sp.solve, sp.check, sp.grad, sp.fit, sp.exact, sp.invert, sp.load):
         assert f.__doc__ and len(f.__doc__) > 80, f.__name__
     assert "hartree" in sp.__doc__
+
+
+def test_hostile_values_from_python_are_input_errors():
+    # Non-finite numbers in dicts, arrays and callback results are refused with the key or row
+    # they came from; nothing non-finite reaches a solve.
+    with pytest.raises(sp.InputError, match=r"system\[0\]\.charge.*finite"):
+        sp.solve(system=dict(MG, charge=float("nan")))
+    nucleus = [{"charge": 2.0, "position": 0.0, "softening": float("inf")}]
+    with pytest.raises(sp.InputError, match=r"nucleus\[0\]\.softening.*finite"):
+        sp.solve(system=dict(HE_LINE, nucleus=nucleus))
+    table = np.array([[-1.0, 0.1], [0.0, float("nan")], [1.0, 0.1]])
+    with pytest.raises(sp.InputError, match="row 2: the density is not a finite number"):
+        sp.invert(ROOT / "workflows" / "invert-1d-noninteracting.toml", target=table)
+    with pytest.raises(sp.InputError, match="row 3: positions must increase"):
+        sp.invert(ROOT / "workflows" / "invert-1d-noninteracting.toml", target=np.array([[0.0, 1.0], [1.0, 1.0], [0.5, 1.0]]))
+    for returned in (float("nan"), "yes", 1):
+        with pytest.raises(TypeError, match="the fit callback returned"):
+            sp.fit(ROOT / "workflows" / "fit-atoms-xalpha.toml", callback=lambda it, r=returned: r)

@@ -99,3 +99,7 @@ def test_bad_shapes_and_types_are_refused():
         ks(torch.tensor([0.3, 0.1], dtype=torch.float64))
     with pytest.raises(sp.InputError):
         spt.KohnSham(LINE, [{"kind": "gaussian", "index": 5, "fields": ["depth"]}])
+    # A non-finite parameter is an input error naming it, before any SCF.
+    for bad in (float("nan"), float("inf")):
+        with pytest.raises(sp.InputError, match="gaussian0.depth' is not a finite number"):
+            ks(torch.tensor([bad], dtype=torch.float64))

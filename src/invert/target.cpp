@@ -85,6 +85,22 @@ TargetDensity target_on_mesh(const std::vector<double>& x, const std::vector<std
   const Eigen::VectorXd& X = mesh.x();
   const Eigen::VectorXd& W = mesh.density_weight();
   if (x.size() < 2) throw InputError(where, source + ": a density table needs at least two rows");
+  // Tables that did not come through the file reader (arrays from Python) get its checks here.
+  for (std::size_t j = 0; j < x.size(); ++j) {
+    if (!std::isfinite(x[j]))
+      throw InputError(where, source + ": row " + std::to_string(j + 1) + ": the position is not a finite number");
+    if (j > 0 && !(x[j] > x[j - 1]))
+      throw InputError(where, source + ": row " + std::to_string(j + 1) + ": positions must increase strictly");
+    for (int s = 0; s < static_cast<int>(n.size()); ++s) {
+      if (n[s].size() != x.size())
+        throw InputError(where, source + ": density column " + std::to_string(s + 1) + " has " +
+                                    std::to_string(n[s].size()) + " values for " + std::to_string(x.size()) + " positions");
+      if (!std::isfinite(n[s][j]) || n[s][j] < 0.0)
+        throw InputError(where, source + ": row " + std::to_string(j + 1) + ": the density " +
+                                    (std::isfinite(n[s][j]) ? "is negative" : "is not a finite number") +
+                                    "; densities must be finite and non-negative");
+    }
+  }
   // Exact node match: every interior node (and radially every node but r = 0) is a table row.
   std::vector<int> match(N, -1);
   bool exact = true;

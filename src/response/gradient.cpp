@@ -249,6 +249,12 @@ Eigen::VectorXd parameter_values(const std::vector<SystemSpec>& systems, const s
 std::vector<SystemSpec> apply_parameters(const std::vector<SystemSpec>& systems, const std::vector<ParameterRef>& params,
                                          const Eigen::VectorXd& theta) {
   std::vector<SystemSpec> out = systems;
+  if (static_cast<std::size_t>(theta.size()) != params.size())
+    throw InputError("expected " + std::to_string(params.size()) + " parameter values, got " + std::to_string(theta.size()));
+  for (std::size_t i = 0; i < params.size(); ++i)
+    if (!std::isfinite(theta(i)))
+      throw located(params[i].where, "parameter '" + params[i].name + "' is not a finite number (" +
+                                         std::to_string(theta(i)) + "); every parameter value must be finite");
   for (std::size_t i = 0; i < params.size(); ++i)
     for (int s = 0; s < static_cast<int>(out.size()); ++s)
       if (acts_on(params[i], s)) {
