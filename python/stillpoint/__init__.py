@@ -178,7 +178,8 @@ def fit(source=None, *, callback=None, checkpoint="", resume=False, threads=0, *
 
     ``callback(iteration)`` is called after every iteration with a dict (iteration, loss,
     gradient_norm, validation_loss, seconds); returning True stops the fit at the end of that
-    iteration (termination "interrupted"). Files are not written; the result dict holds the
+    iteration (termination "interrupted"), False or None goes on, anything else is a TypeError.
+    Files are not written; the result dict holds the
     initial and fitted parameters, losses, history and standard errors.
     """
     if isinstance(source, FitWorkflow):
