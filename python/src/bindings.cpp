@@ -144,18 +144,7 @@ class PyFitObserver : public sp::FitObserver {
     d["seconds"] = it.seconds;
     d["step_successful"] = it.step_successful;
     try {
-      // The contract is True (stop), False or None (go on). Anything else, a NaN loss returned
-      // by mistake say, would be truthy and stop the fit silently: it is a TypeError.
-      const py::object r = callback_(d);
-      const bool boolean = py::isinstance<py::bool_>(r) ||
-                           (py::hasattr(r, "dtype") && py::str(r.attr("dtype")).cast<std::string>() == "bool");
-      if (!r.is_none() && !boolean) {
-        const std::string what = "the fit callback returned " + py::repr(r).cast<std::string>() +
-                                 "; return True to stop the fit, False or None to go on";
-        PyErr_SetString(PyExc_TypeError, what.c_str());
-        throw py::error_already_set();
-      }
-      if (!r.is_none() && r.cast<bool>()) stop_->store(1);
+      if (py::bool_(callback_(d))) stop_->store(1);
     } catch (py::error_already_set& e) {
       // An exception in the callback stops the fit; it is raised again after the run.
       error_ = std::make_unique<py::error_already_set>(std::move(e));

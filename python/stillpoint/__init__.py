@@ -24,6 +24,8 @@ The PyTorch bridge is :mod:`stillpoint.torch`.
 """
 import os
 
+import numpy as np
+
 from . import _core
 from ._core import (  # noqa: F401  (re-exported)
     ExactInput,
@@ -167,8 +169,6 @@ def grad(source=None, *, theta=None, threads=1, verify=False, **tables):
     (names), ``terms``, ``term_values``, ``term_quantities``, linear-solve statistics.
     """
     inp = grad_input(source, **tables)
-    import numpy as np
-
     th = None if theta is None else np.asarray(theta, dtype=float)
     return _core.grad(inp, th, int(threads), bool(verify))
 
@@ -188,7 +188,22 @@ def fit(source=None, *, callback=None, checkpoint="", resume=False, threads=0, *
         wf = _core.read_fit(os.fspath(source))
     else:
         wf = _core.parse_fit(_document(source, tables, "fit"), _PYTHON_INPUT)
-    return _core.fit(wf, callback, os.fspath(checkpoint), bool(resume), int(threads))
+    return _core.fit(wf, _checked_callback(callback), os.fspath(checkpoint), bool(resume), int(threads))
+
+
+def _checked_callback(callback):
+    """The fit callback with its contract enforced: True stops, False or None goes on. Any other
+    value (a NaN loss returned by mistake is truthy) is a TypeError, not a silent stop."""
+    if callback is None:
+        return None
+
+    def checked(iteration):
+        r = callback(iteration)
+        if r is None or isinstance(r, (bool, np.bool_)):
+            return bool(r)
+        raise TypeError(f"the fit callback returned {r!r}; return True to stop the fit, False or None to go on")
+
+    return checked
 
 
 def exact(source=None, **tables):

@@ -69,9 +69,8 @@ std::vector<double> electrons_per_spin(const SystemSpec& system) {
   s.xc_weights.clear();
   s.xc_parameters.clear();
   const KsProblem P(s);
-  std::vector<double> e(P.nspin(), 0.0);
-  for (const Channel& c : P.channels())
-    for (double f : c.occupations) e[c.spin] += f;
+  std::vector<double> e(P.nspin());
+  for (int s = 0; s < P.nspin(); ++s) e[s] = P.spin_electrons(s);
   return e;
 }
 

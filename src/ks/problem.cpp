@@ -200,16 +200,14 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
       channels_.push_back(c);
     }
   }
-  if (nspin() == 2) {
-    double per_spin[2] = {0.0, 0.0};
-    for (const auto& c : channels_)
-      for (double f : c.occupations) per_spin[c.spin] += f;
-    if (per_spin[0] > 0.0 && per_spin[1] > 0.0 && std::abs(per_spin[0] - per_spin[1]) > 1e-12)
-      for (std::size_t i = 0; i < xc_.size(); ++i)
-        if (const std::string why = xc_.term(i).open_shell_refusal(); !why.empty())
-          throw InputError("spin-polarized with " + detail::format_number(per_spin[0], 6) + " up and " +
-                           detail::format_number(per_spin[1], 6) + " down electrons: " + why);
-  }
+  for (const auto& c : channels_)
+    for (double f : c.occupations) spin_electrons_[c.spin] += f;
+  const double up = spin_electrons_[0], down = spin_electrons_[1];
+  if (nspin() == 2 && up > 0.0 && down > 0.0 && std::abs(up - down) > 1e-12)
+    for (std::size_t i = 0; i < xc_.size(); ++i)
+      if (const std::string why = xc_.term(i).open_shell_refusal(); !why.empty())
+        throw InputError("spin-polarized with " + detail::format_number(up, 6) + " up and " +
+                         detail::format_number(down, 6) + " down electrons: " + why);
   int lmax = 0;
   for (const auto& c : channels_) lmax = std::max(lmax, c.l);
   const Mesh& m = *mesh_;

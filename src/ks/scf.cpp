@@ -101,8 +101,14 @@ std::vector<Level> labelled_levels(const KsProblem& P, const std::vector<Channel
 }
 
 namespace {
+// The SCF's own divergence verdict (not a failed solve inside an iteration), which the LDA
+// restart below answers.
+class ScfDiverged : public NumericalError {
+ public:
+  using NumericalError::NumericalError;
+};
 KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSolution* start);
-}
+}  // namespace
 
 // A GGA whose SCF diverges from the default start gets one more attempt from the converged LDA
 // solution of the same system: early iterates of a crude start can have density tails with
@@ -112,9 +118,8 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
 KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution* start) {
   try {
     return solve_scf_from(P, opt, start);
-  } catch (const NumericalError& first) {
-    const bool diverged = std::string(first.what()).find("SCF diverged") != std::string::npos;
-    if (start || !diverged || !P.xc().needs_gradient()) throw;
+  } catch (const ScfDiverged& first) {
+    if (start || !P.xc().needs_gradient()) throw;
     SystemSpec lda = P.spec();
     const bool line = lda.geometry == Geometry::Line;
     lda.xc = line ? std::vector<std::string>{"lda_x_1d_soft"} : std::vector<std::string>{"lda_x", "lda_c_pw"};
@@ -126,7 +131,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       if (opt.verbose) std::fprintf(stderr, "  SCF diverged; starting again from the converged LDA solution\n");
       return solve_scf_from(P, opt, &base);
     } catch (const std::exception&) {
-      throw first;
+      throw first;  // the first attempt's message and history
     }
   }
 }
@@ -155,9 +160,6 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
   int best_iteration = 0, restarts = 0;
   double mixing = opt.mixing;
   std::vector<std::string> restart_notes;
-  double spin_electrons[2] = {0.0, 0.0};
-  for (const Channel& ch : P.channels())
-    for (double f : ch.occupations) spin_electrons[ch.spin] += f;
   std::vector<Eigen::VectorXd> level_change(P.channels().size());
   // Unoccupied levels get kUnoccupiedGrace iterations to settle once everything else has
   // converged; a level that still moves then (its potential weighted by no electron, e.g. Li's
@@ -182,7 +184,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
           << " (first after the best iterate, iteration " << best_iteration << ")";
       if (restarts > 1) msg << ", and " << restarts - 1 << " damped restarts did not help";
       msg << "; try a smaller mixing or another grid";
-      throw NumericalError(msg.str(), history_lines());
+      throw ScfDiverged(msg.str(), history_lines());
     }
     mixing *= 0.5;
     last_restart = it;
@@ -240,7 +242,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
         level_change[c] = (m.states[c].energies - prev_eps[c]).cwiseAbs();
         for (int i = 0; i < level_change[c].size(); ++i) {
           const bool occupied = i < static_cast<int>(occ.size()) && occ[i] > 0.0;
-          if (spin_electrons[P.channels()[c].spin] > 0.0)
+          if (P.spin_electrons(P.channels()[c].spin) > 0.0)
             step.eigenvalue_change = std::max(step.eigenvalue_change, level_change[c](i));
           if (occupied) occupied_change = std::max(occupied_change, level_change[c](i));
         }
@@ -319,14 +321,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
       best_warm = warm;
     }
     hist_v.push_back(vin);
-    // The mixing sees the residual clipped to 10 (1 + |v_in|) hartree per node: a transient
-    // density can make a GGA's potential enormous where almost no electron is (B88 + P86 on Ar:
-    // -1.7e6 Ha at r = 51 bohr, n = 5e-24 in the second iteration), and any fraction of that
-    // would drown every state in one spike. Only the path changes: at the fixed point the
-    // residual is zero, and convergence is judged on the unclipped residual.
-    const Eigen::VectorXd limit = 10.0 * (1.0 + vin.array().abs());
-    const Eigen::VectorXd res_mix = res.cwiseMax(-limit).cwiseMin(limit);
-    hist_r.push_back(res_mix);
+    hist_r.push_back(res);
     if (static_cast<int>(hist_v.size()) > std::max(1, opt.history)) {
       hist_v.erase(hist_v.begin());
       hist_r.erase(hist_r.begin());
@@ -334,7 +329,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
     const int k = static_cast<int>(hist_v.size());
     Eigen::VectorXd next;
     if (k == 1) {
-      next = vin + mixing * res_mix;
+      next = vin + mixing * res;
     } else {
       Eigen::MatrixXd A = Eigen::MatrixXd::Zero(k + 1, k + 1);
       Eigen::VectorXd rhs = Eigen::VectorXd::Zero(k + 1);
@@ -349,7 +344,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
       const Eigen::VectorXd c = A.colPivHouseholderQr().solve(rhs);
       next = Eigen::VectorXd::Zero(vin.size());
       for (int i = 0; i < k; ++i) next += c(i) * (hist_v[i] + mixing * hist_r[i]);
-      if (!next.allFinite()) next = vin + mixing * res_mix;
+      if (!next.allFinite()) next = vin + mixing * res;
     }
     v_in = unstack(next, ns);
   }

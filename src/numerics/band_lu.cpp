@@ -69,9 +69,8 @@ void BandLuFactor::solve(double* b) const {
 
 int band_count_below(const std::vector<double>& lower, int n, int kd, double x) {
   const int L = kd + 1;
-  // W(i, j) for i >= j, j >= i - kd: the unit lower factor times D (row i of L D), kept in a
-  // rolling band so the update is the row form of the Cholesky-like recurrence.
-  // Reused between calls of one thread: bisection calls this tens of times per solve.
+  // L (unit lower, in band storage) and D, column by column; the buffers are reused between
+  // calls of one thread, since bisection calls this tens of times per solve.
   thread_local std::vector<double> d, l;  // l[(i - j) + j * L] = L(i, j)
   d.resize(n);
   l.resize(static_cast<std::size_t>(L) * n);

@@ -111,7 +111,7 @@ namespace {
 struct BandLu {
   int n = 0, kd = 0;
   BandLuFactor f;
-  bool factor(const SpMat& H, double mu) {
+  void factor(const SpMat& H, double mu) {
     f.reset(n, kd, kd);
     for (int j = 0; j < H.outerSize(); ++j)
       for (SpMat::InnerIterator it(H, j); it; ++it) {
@@ -120,7 +120,6 @@ struct BandLu {
         f.at(i, j) = it.value() - (i == j ? mu : 0.0);
       }
     f.factor();  // an exactly singular pivot still gives a huge, eigenvector-rich solve
-    return true;
   }
   void solve(Eigen::VectorXd& b) const { f.solve(b.data()); }
 };
@@ -163,7 +162,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   auto refine = [&](BandLu& lu, double mu, Eigen::VectorXd& x, const Eigenpairs& out, int i, double& rho,
                     int extra = 0) {
     for (int it = 0; it < 4 + extra; ++it) {
-      if (!lu.factor(H, mu)) return false;
+      lu.factor(H, mu);
       lu.solve(x);
       for (int j = 0; j < i; ++j) x -= out.vectors.col(j).dot(x) * out.vectors.col(j);
       x.normalize();
@@ -188,11 +187,12 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
     const double low = out.values(0) - std::max(span, 1e-6 * (1.0 + std::abs(out.values(0))));
     return I.chol.factor(H, low) && count_below(out.values(count - 1) + span) == count;
   };
-  auto cold_by_bisection = [&](const SpMat& Hm, const Eigen::VectorXd&, double lo, int cnt, Eigenpairs& out) {
+  auto cold_by_bisection = [&](double lo, Eigenpairs& out) {
+    const int cnt = count;
     const int kd = I.bandwidth, nn = static_cast<int>(n);
     std::vector<double> band(static_cast<std::size_t>(kd + 1) * nn, 0.0);
-    for (int j = 0; j < Hm.outerSize(); ++j)
-      for (SpMat::InnerIterator it(Hm, j); it; ++it) {
+    for (int j = 0; j < H.outerSize(); ++j)
+      for (SpMat::InnerIterator it(H, j); it; ++it) {
         const int i = static_cast<int>(it.row());
         if (i >= j && i - j <= kd) band[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = it.value();
       }
@@ -281,7 +281,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   // bracket refines it and its vector, and the warm path's inertia proof certifies the set.
   // Shift-invert Lanczos below stays the fallback. (Lanczos from one shift below a spectrum that
   // spans thousands of hartree needed thousands of restarts for xenon's 5 s levels.)
-  if (Eigenpairs ep; cold_by_bisection(H, diagonal, proven, count, ep)) {
+  if (Eigenpairs ep; cold_by_bisection(proven, ep)) {
     warm.lower_bound = ep.values(0) - 0.1 * std::abs(ep.values(0)) - 0.05;
     warm.previous = ep;
     return ep;

@@ -377,8 +377,8 @@ class LibxcTerm final : public XcTerm {
       const bool finite = std::isfinite(v[0]) && std::isfinite(v[1]) && std::isfinite(v[2]);
       // Only a fall towards minus infinity: a potential that grows to plus infinity (PBE-type
       // correlation, like (1 - zeta)^(-1/3)) is a barrier the minority electrons stay out of.
-      const bool growing = finite && v[1] < v[0] - 0.2 && v[2] < v[1] - 0.2 && v[2] < -1.0;
-      if (growing) {
+      const bool falls = finite && v[1] < v[0] - 0.2 && v[2] < v[1] - 0.2 && v[2] < -1.0;
+      if (falls) {
         std::ostringstream m;
         m << "functional '" << name_ << "' (" << xc_func_info_get_name(unpol_.f.info)
           << ") has a minority-spin potential that falls without bound as the spin polarization approaches 1 (at n_majority = "

@@ -59,6 +59,8 @@ class KsProblem {
   /// Nucleus–nucleus repulsion (line; 0 for atoms).
   double nuclear_repulsion() const { return e_nn_; }
   double electron_count() const { return electrons_; }
+  /// Electrons of spin `spin` (0 up, 1 down; unpolarized: spin 0 holds all), from the occupations.
+  double spin_electrons(int spin) const { return spin_electrons_[spin]; }
 
   /// Solves every channel in the potentials v_s (one nodal vector per spin). `warm` holds
   /// each channel's eigensolver warm start (empty on the first call) and is updated.
@@ -83,6 +85,7 @@ class KsProblem {
   Eigen::VectorXd v_ext_;
   double e_nn_ = 0.0;
   double electrons_ = 0.0;
+  double spin_electrons_[2] = {0.0, 0.0};
   double density_threshold_ = 1e-30;
 };
 
