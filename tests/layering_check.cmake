@@ -1,13 +1,16 @@
 # Fails when a file includes a header of a higher layer (or another job not listed below).
-# Layers, lowest first: common < numerics < xc < ks < response < jobs (check, exact, fit, invert).
+# Layers, lowest first: common < numerics < xc < ks < parallel (and mpi, its MPI implementation
+# for the CLI) < response < jobs (check, exact, fit, invert).
 # Run: cmake -DSOURCE_DIR=<repo> -P tests/layering_check.cmake
 set(rank_common 0)
 set(rank_numerics 1)
 set(rank_xc 2)
 set(rank_ks 3)
-set(rank_response 4)
+set(rank_parallel 4)
+set(rank_mpi 4)
+set(rank_response 5)
 foreach(job check exact fit invert)
-  set(rank_${job} 5)
+  set(rank_${job} 6)
 endforeach()
 # Job-to-job edges that are part of the design: a fit dataset can be an exact-reference manifest.
 set(allowed_fit_exact TRUE)
@@ -45,7 +48,7 @@ foreach(f ${files})
       endif()
       if(rank_${to} GREATER rank_${from})
         list(APPEND bad "${f} (${from}) includes ${to}: a lower layer must not depend on a higher one")
-      elseif(rank_${from} EQUAL 5 AND rank_${to} EQUAL 5 AND NOT from STREQUAL to AND NOT allowed_${from}_${to})
+      elseif(rank_${from} EQUAL 6 AND rank_${to} EQUAL 6 AND NOT from STREQUAL to AND NOT allowed_${from}_${to})
         list(APPEND bad "${f} (${from}) includes job ${to}: jobs depend on layers, not on each other")
       endif()
     endif()

@@ -1,5 +1,6 @@
 #include "stillpoint/check/reference_check.hpp"
 #include "common/toml_input.hpp"
+#include "parallel/distribute.hpp"
 
 #include <algorithm>
 #include <cctype>
@@ -175,6 +176,53 @@ std::vector<ReferenceRow> read_reference_table(const std::string& path) {
   return rows;
 }
 
+namespace {
+
+// The value of one table row in a converged solution. An unknown quantity or level is an
+// input error naming the row.
+double computed_value(const ReferenceRow& row, const ReferenceRow& first, bool polarized, const KsSolution& S) {
+  const ReferenceRow* r = &row;
+  double computed = std::numeric_limits<double>::quiet_NaN();
+  const std::string& q = r->quantity;
+  if (q == "Etot")
+    computed = S.energy.total;
+  else if (q == "Ekin")
+    computed = S.energy.kinetic;
+  else if (q == "Ecoul")
+    computed = S.energy.hartree;
+  else if (q == "Eenuc")
+    computed = S.energy.external;
+  else if (q == "Exc")
+    computed = S.energy.xc;
+  else if (q.rfind("eps_", 0) == 0) {
+    std::string label = q.substr(4);
+    int spin = 0;
+    if (polarized) {
+      if (label.size() > 5 && label.substr(label.size() - 5) == "_down") {
+        spin = 0;  // NIST SRD 141: "down" is the majority spin, our channel 0
+        label.resize(label.size() - 5);
+      } else if (label.size() > 3 && label.substr(label.size() - 3) == "_up") {
+        spin = 1;
+        label.resize(label.size() - 3);
+      } else {
+        throw InputError(SourceLocation{r->file, r->line, 0, "quantity"},
+                         "LSD eigenvalues need a spin suffix: " + q + "_up or " + q + "_down");
+      }
+    }
+    for (const Level& lv : S.levels)
+      if (lv.label == label && lv.spin == spin) computed = lv.energy;
+    if (std::isnan(computed))
+      throw InputError(SourceLocation{r->file, r->line, 0, "quantity"},
+                       "no level '" + label + "' in configuration " + first.configuration);
+  } else {
+    throw InputError(SourceLocation{r->file, r->line, 0, "quantity"},
+                     "unknown quantity '" + q + "' (valid: Etot, Ekin, Ecoul, Eenuc, Exc, eps_<nl>[_up|_down])");
+  }
+  return computed;
+}
+
+}  // namespace
+
 CheckReport run_reference_check(const std::vector<ReferenceRow>& rows, const CheckOptions& opt) {
   const auto t0 = std::chrono::steady_clock::now();
   using Key = std::tuple<int, int, std::string>;
@@ -188,77 +236,76 @@ CheckReport run_reference_check(const std::vector<ReferenceRow>& rows, const Che
   CheckReport rep;
   for (const Key& k : order) {
     const auto& g = groups[k];
-    const ReferenceRow& first = *g.front();
     for (const ReferenceRow* r : g)
-      if (parse_configuration(r->configuration) != parse_configuration(first.configuration))
+      if (parse_configuration(r->configuration) != parse_configuration(g.front()->configuration))
         throw InputError(SourceLocation{r->file, r->line, 0, "configuration"},
-                         "configuration differs from line " + std::to_string(first.line) + " of the same atom and approximation");
-    SystemSpec s;
-    s.name = first.symbol;  // built with append: GCC 12 warns falsely (-Wrestrict) on operator+
-    if (first.charge) s.name.append("+").append(std::to_string(first.charge));
-    s.name.append("_").append(first.approximation);
-    s.geometry = Geometry::Radial;
-    s.atom.Z = first.Z;
-    s.charge = first.charge;
-    s.atom.configuration = parse_configuration(first.configuration);
-    s.spin_polarized = first.approximation == "LSD";
-    s.xc = {"lda_x", "lda_c_vwn"};
-    s.grid = grid_preset(Geometry::Radial, opt.grid);
-    s.grid_name = opt.grid;
-    KsProblem P(s);
-    const KsSolution S = solve_scf(P, opt.scf);
-    for (const ReferenceRow* r : g) {
-      double computed = std::numeric_limits<double>::quiet_NaN();
-      const std::string& q = r->quantity;
-      if (q == "Etot")
-        computed = S.energy.total;
-      else if (q == "Ekin")
-        computed = S.energy.kinetic;
-      else if (q == "Ecoul")
-        computed = S.energy.hartree;
-      else if (q == "Eenuc")
-        computed = S.energy.external;
-      else if (q == "Exc")
-        computed = S.energy.xc;
-      else if (q.rfind("eps_", 0) == 0) {
-        std::string label = q.substr(4);
-        int spin = 0;
-        if (s.spin_polarized) {
-          if (label.size() > 5 && label.substr(label.size() - 5) == "_down") {
-            spin = 0;  // NIST SRD 141: "down" is the majority spin, our channel 0
-            label.resize(label.size() - 5);
-          } else if (label.size() > 3 && label.substr(label.size() - 3) == "_up") {
-            spin = 1;
-            label.resize(label.size() - 3);
-          } else {
-            throw InputError(SourceLocation{r->file, r->line, 0, "quantity"},
-                             "LSD eigenvalues need a spin suffix: " + q + "_up or " + q + "_down");
-          }
+                         "configuration differs from line " + std::to_string(g.front()->line) + " of the same atom and approximation");
+  }
+  // One SCF per (atom, charge, approximation); under MPI the atoms are shared out over the ranks
+  // and their computed values sent to all, so every rank builds the same report.
+  const int ng = static_cast<int>(order.size());
+  std::vector<std::vector<double>> computed(order.size());
+  std::vector<int> iterations(order.size(), 0);
+  std::vector<double> cost(order.size());
+  for (int i = 0; i < ng; ++i) cost[i] = std::pow(std::get<0>(order[i]), 1.5);  // until measured: grows with Z
+  const Communicator& comm = opt.communicator ? *opt.communicator : serial_communicator();
+  const auto errors = detail::distributed_for(
+      comm, ng, 1, cost,
+      [&](int i) {
+        const auto& g = groups[order[i]];
+        const ReferenceRow& first = *g.front();
+        SystemSpec s;
+        s.name = first.symbol;  // built with append: GCC 12 warns falsely (-Wrestrict) on operator+
+        if (first.charge) s.name.append("+").append(std::to_string(first.charge));
+        s.name.append("_").append(first.approximation);
+        s.geometry = Geometry::Radial;
+        s.atom.Z = first.Z;
+        s.charge = first.charge;
+        s.atom.configuration = parse_configuration(first.configuration);
+        s.spin_polarized = first.approximation == "LSD";
+        s.xc = {"lda_x", "lda_c_vwn"};
+        s.grid = grid_preset(Geometry::Radial, opt.grid);
+        s.grid_name = opt.grid;
+        KsProblem P(s);
+        const KsSolution S = solve_scf(P, opt.scf);
+        iterations[i] = S.iterations;
+        for (const ReferenceRow* r : g) computed[i].push_back(computed_value(*r, first, s.spin_polarized, S));
+        if (opt.progress) {
+          char buf[160];
+          std::snprintf(buf, sizeof buf, "%s Z=%d charge=%d %s: %zu values, SCF %d iterations", first.symbol.c_str(), first.Z,
+                        first.charge, first.approximation.c_str(), g.size(), S.iterations);
+          opt.progress(buf);
         }
-        for (const Level& lv : S.levels)
-          if (lv.label == label && lv.spin == spin) computed = lv.energy;
-        if (std::isnan(computed))
-          throw InputError(SourceLocation{r->file, r->line, 0, "quantity"},
-                           "no level '" + label + "' in configuration " + first.configuration);
-      } else {
-        throw InputError(SourceLocation{r->file, r->line, 0, "quantity"},
-                         "unknown quantity '" + q + "' (valid: Etot, Ekin, Ecoul, Eenuc, Exc, eps_<nl>[_up|_down])");
-      }
+      },
+      [&](int i) {
+        detail::ByteWriter w;
+        w.i64(iterations[i]);
+        w.u64(computed[i].size());
+        for (double v : computed[i]) w.f64(v);
+        return w.take();
+      },
+      [&](int i, const std::string& bytes) {
+        detail::ByteReader r = detail::message_reader(bytes);
+        iterations[i] = static_cast<int>(r.i64());
+        computed[i].resize(r.count(8));
+        for (double& v : computed[i]) v = r.f64();
+      },
+      /*stop_at_first_error=*/true);
+  // The first failing atom in table order, as a serial run that stops there would report it.
+  for (const auto& e : errors)
+    if (e) std::rethrow_exception(e);
+  for (int i = 0; i < ng; ++i) {
+    const auto& g = groups[order[i]];
+    for (std::size_t j = 0; j < g.size(); ++j) {
       CheckResult cr;
-      cr.row = *r;
-      cr.computed = computed;
-      cr.deviation = computed - r->value;
+      cr.row = *g[j];
+      cr.computed = computed[i][j];
+      cr.deviation = cr.computed - g[j]->value;
       cr.passed = std::abs(cr.deviation) <= opt.tolerance;
       rep.n_checked++;
       if (!cr.passed) rep.n_failed++;
       rep.max_abs_deviation = std::max(rep.max_abs_deviation, std::abs(cr.deviation));
       rep.results.push_back(cr);
-    }
-    if (opt.progress) {
-      char buf[160];
-      std::snprintf(buf, sizeof buf, "%s Z=%d charge=%d %s: %zu values, SCF %d iterations", first.symbol.c_str(), first.Z,
-                    first.charge, first.approximation.c_str(), g.size(), S.iterations);
-      opt.progress(buf);
     }
   }
   rep.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();

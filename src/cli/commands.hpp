@@ -3,6 +3,13 @@
 #include <string>
 #include <vector>
 
+#include "stillpoint/parallel/communicator.hpp"
+
+/// The ranks of this run: MPI_COMM_WORLD under mpirun, else this process alone (set by main).
+const stillpoint::Communicator& ranks();
+/// Only rank 0 writes files and results; the other ranks compute their share and stay silent.
+inline bool writes_files() { return ranks().rank() == 0; }
+
 struct GradCommandOptions {
   std::string input;
   std::string output;

@@ -19,21 +19,12 @@ int run_exact(const ExactCommandOptions& o) {
   const sp::ExactInput in = sp::read_exact_input(o.input);
   for (const auto& w : in.warnings) std::cerr << "stillpoint: warning: " << w << "\n";
   const bool batch = !in.batch_values.empty();
-  std::vector<sp::ExactResult> results;
-  results.reserve(in.systems.size());
-  for (std::size_t i = 0; i < in.systems.size(); ++i) {
-    const sp::SystemSpec& s = in.systems[i];
-    if (!o.quiet) std::cerr << "  exact [" << i + 1 << "/" << in.systems.size() << "] " << s.name << " ...\n";
-    try {
-      results.push_back(sp::solve_exact(s, in.options));
-    } catch (const sp::InputError& e) {
-      if (!e.where().file.empty()) throw;
-      throw sp::InputError(in.system_locations[i], "system '" + s.name + "': " + e.what());
-    } catch (const sp::NumericalError& e) {
-      throw sp::NumericalError("system '" + s.name + "' (" + in.system_locations[i].describe() + "): " + e.what(), e.details());
-    }
-    if (!batch) std::cout << sp::format_exact_result(results.back()) << "\n";
-  }
+  const std::size_t n = in.systems.size();
+  const std::vector<sp::ExactResult> results = sp::solve_exact_systems(in, ranks(), [&](int i) {
+    if (!o.quiet) std::cerr << "  exact [" << i + 1 << "/" << n << "] " << in.systems[i].name << " ...\n";
+  });
+  if (!batch)
+    for (const sp::ExactResult& r : results) std::cout << sp::format_exact_result(r) << "\n";
   if (batch) {
     std::string params;
     for (const auto& p : in.batch_parameters) params += (params.empty() ? "" : ", ") + p;
@@ -47,7 +38,7 @@ int run_exact(const ExactCommandOptions& o) {
                   est);
     }
   }
-  if (!o.output.empty()) {
+  if (!o.output.empty() && writes_files()) {
     const auto files = sp::exact_output_files(in, results, o.output);
     std::vector<std::pair<std::string, std::string>> set;  // all files or none
     for (const auto& [name, content] : files) set.emplace_back(o.output + "/" + name, content);

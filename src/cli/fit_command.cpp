@@ -95,15 +95,16 @@ int run_fit(const FitCommandOptions& o) {
   run.resume = o.resume;
   run.stop = &g_signal;
   run.observer = &progress;
+  run.communicator = &ranks();
   // A run that fails before it has written anything leaves no empty folder behind.
   const bool created = !fs::exists(dir);
-  fs::create_directories(dir);
+  if (writes_files()) fs::create_directories(dir);
   sp::FitResult res;
   try {
     res = sp::run_fit(wf.spec, run);
   } catch (...) {
     std::error_code ec;
-    if (created && fs::is_empty(dir, ec)) fs::remove(dir, ec);
+    if (created && writes_files() && fs::is_empty(dir, ec)) fs::remove(dir, ec);
     throw;
   }
   if (res.termination == sp::FitResult::Termination::Interrupted) {
@@ -113,6 +114,7 @@ int run_fit(const FitCommandOptions& o) {
               << checkpoint << "\n  continue with: stillpoint fit " << o.input << " --output " << dir << " --resume\n";
     return sig == SIGTERM ? 143 : 130;
   }
+  if (!writes_files()) return 0;
   const sp::OutputFiles files = sp::fit_output_files(wf, res);
   std::vector<std::pair<std::string, std::string>> set;  // all files or none
   for (const auto& [name, text] : files) set.emplace_back((fs::path(dir) / name).string(), text);

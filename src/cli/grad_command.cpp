@@ -21,6 +21,7 @@ int run_grad(const GradCommandOptions& o) {
   if (o.verify) in.verify = true;
   if (o.verify_tolerance > 0) in.verify_tolerance = o.verify_tolerance;
   for (const auto& w : in.warnings) std::cerr << "stillpoint: warning: " << w << "\n";
+  in.options.communicator = &ranks();
   sp::GradientProblem G(in.base.systems, in.parameters, in.loss, in.options);
   const Eigen::VectorXd theta = G.initial_values();
   if (!o.quiet)
@@ -101,7 +102,7 @@ int run_grad(const GradCommandOptions& o) {
     out << buf;
   }
   std::cout << out.str();
-  if (!o.output.empty()) {
+  if (!o.output.empty() && writes_files()) {
     nlohmann::json j;
     j["units"] = {{"energy", "hartree"}, {"length", "bohr"}};
     j["mode"] = mode;

@@ -10,6 +10,7 @@
 // (so input errors in any system stop the run before any SCF), then solves all of them, and
 // only when every system has converged to finite results writes the files. Each file is
 // written atomically (temporary file + rename), so a reader never sees a partial file.
+#include <fcntl.h>
 #include <unistd.h>
 
 #include <CLI/CLI.hpp>
@@ -26,6 +27,9 @@
 #include "stillpoint/ks/input.hpp"
 #include "stillpoint/check/reference_check.hpp"
 #include "stillpoint/ks/report.hpp"
+#ifdef STILLPOINT_HAVE_MPI
+#include "stillpoint/parallel/mpi.hpp"
+#endif
 
 namespace sp = stillpoint;
 namespace fs = std::filesystem;
@@ -184,21 +188,22 @@ int run_check(const std::vector<std::string>& tables, double tolerance, const st
   sp::CheckOptions opt;
   opt.tolerance = tolerance;
   opt.grid = grid;
+  opt.communicator = &ranks();
   if (!quiet) opt.progress = [](const std::string& s) { std::cerr << "  done: " << s << "\n"; };
   const sp::CheckReport rep = sp::run_reference_check(rows, opt);
   std::cout << sp::format_check_table(rep, tolerance);
   // All reports or none.
   std::vector<std::pair<std::string, std::string>> outputs;
+  if (!writes_files()) return rep.n_failed == 0 ? 0 : 1;
   if (!report.empty()) outputs.emplace_back(report, sp::check_report_json(rep, tolerance));
   if (!junit.empty()) outputs.emplace_back(junit, sp::check_report_junit(rep, tolerance));
   sp::write_files_atomically(outputs);
   return rep.n_failed == 0 ? 0 : 1;
 }
 
-}  // namespace
-
-int main(int argc, char** argv) {
-  openblas_set_num_threads(1);
+// The whole command line; an error ends it with its exit code and `message` (printed once by
+// main, under MPI by one rank only).
+int run_cli(int argc, char** argv, std::string& message) {
   CLI::App app{"stillpoint: Kohn-Sham solutions, exact gradients and fits for density-functional development.\n"
                "All quantities in hartree atomic units (energies in hartree, lengths in bohr).\n"
                "Exit status: 0 ok, 1 values outside tolerance, 2 input error, 3 numerical failure, 4 internal error, 5 output could not be written."};
@@ -304,18 +309,53 @@ int main(int argc, char** argv) {
       return run_fit(fopt);
     }
   } catch (const sp::InputError& e) {
-    std::cerr << "stillpoint: input error: " << e.what() << "\n";
+    message = std::string("stillpoint: input error: ") + e.what() + "\n";
     return 2;
   } catch (const sp::NumericalError& e) {
-    std::cerr << "stillpoint: numerical failure: " << e.what() << "\n";
-    for (const auto& d : e.details()) std::cerr << d << "\n";
+    message = std::string("stillpoint: numerical failure: ") + e.what() + "\n";
+    for (const auto& d : e.details()) message += d + "\n";
     return 3;
   } catch (const sp::OutputError& e) {
-    std::cerr << "stillpoint: output could not be written: " << e.what() << "\n";
+    message = std::string("stillpoint: output could not be written: ") + e.what() + "\n";
     return 5;
   } catch (const std::exception& e) {
-    std::cerr << "stillpoint: internal error (please report): " << e.what() << "\n";
+    message = std::string("stillpoint: internal error (please report): ") + e.what() + "\n";
     return 4;
   }
   return 0;
+}
+
+const sp::Communicator* g_ranks = &sp::serial_communicator();
+
+}  // namespace
+
+const sp::Communicator& ranks() { return *g_ranks; }
+
+int main(int argc, char** argv) {
+  openblas_set_num_threads(1);
+  std::string message;
+#ifdef STILLPOINT_HAVE_MPI
+  // Started by mpirun: every rank runs the same command on its share of the work; rank 0 alone
+  // prints results and writes files (docs/mpi.md).
+  sp::MpiSession mpi(argc, argv);
+  g_ranks = &mpi.world();
+  int err_fd = STDERR_FILENO;
+  if (mpi.world().rank() != 0) {
+    err_fd = ::dup(STDERR_FILENO);
+    const int null = ::open("/dev/null", O_WRONLY);
+    if (null >= 0) {
+      ::dup2(null, STDOUT_FILENO);
+      ::dup2(null, STDERR_FILENO);
+      ::close(null);
+    }
+  }
+  const int code = run_cli(argc, argv, message);
+  std::cout.flush();
+  std::cerr.flush();
+  return mpi.finish(code, message, err_fd);
+#else
+  const int code = run_cli(argc, argv, message);
+  std::cerr << message;
+  return code;
+#endif
 }

@@ -4,6 +4,8 @@
 #include <cmath>
 #include <cstring>
 
+#include "common/bytes.hpp"
+#include "parallel/transport.hpp"
 #include "stillpoint/common/errors.hpp"
 
 namespace stillpoint {
@@ -13,130 +15,18 @@ namespace {
 const char kMagic[] = "STILLPOINT-FIT-CHECKPOINT 2\n";
 const char kOldMagic[] = "STILLPOINT-FIT-CHECKPOINT 1\n";
 
-// CRC-32 with the reflected IEEE 802.3 polynomial 0xEDB88320 (the one of zlib and PNG),
-// written out here so the checkpoint needs no extra library. It detects every single-bit
-// error and every burst of up to 32 bits within a record.
-std::uint32_t crc32(const char* p, std::size_t n) {
-  static const std::array<std::uint32_t, 256> table = [] {
-    std::array<std::uint32_t, 256> t{};
-    for (std::uint32_t i = 0; i < 256; ++i) {
-      std::uint32_t c = i;
-      for (int k = 0; k < 8; ++k) c = (c & 1u) ? 0xEDB88320u ^ (c >> 1) : c >> 1;
-      t[i] = c;
-    }
-    return t;
-  }();
-  std::uint32_t c = 0xFFFFFFFFu;
-  for (std::size_t i = 0; i < n; ++i) c = table[(c ^ static_cast<unsigned char>(p[i])) & 0xFFu] ^ (c >> 8);
-  return c ^ 0xFFFFFFFFu;
-}
+using Writer = detail::ByteWriter;
 
-class Writer {
+// Damage can show as a bad checksum or as a length that runs past the end; either way the
+// record being read is named.
+class Reader : public detail::ByteReader {
  public:
-  void raw(const void* p, std::size_t n) {
-    if (n) out_.append(static_cast<const char*>(p), n);
-  }
-  void u64(std::uint64_t v) { raw(&v, sizeof v); }
-  void u8(std::uint8_t v) { raw(&v, 1); }
-  void f64(double v) { raw(&v, sizeof v); }
-  void str(const std::string& s) {
-    u64(s.size());
-    raw(s.data(), s.size());
-  }
-  void vec(const Eigen::VectorXd& v) {
-    u64(static_cast<std::uint64_t>(v.size()));
-    raw(v.data(), sizeof(double) * v.size());
-  }
-  void mat(const Eigen::MatrixXd& m) {
-    u64(static_cast<std::uint64_t>(m.rows()));
-    u64(static_cast<std::uint64_t>(m.cols()));
-    raw(m.data(), sizeof(double) * m.size());
-  }
-  /// Every record ends with the CRC-32 of its bytes, so damage is found where it is.
-  void begin_record() { mark_ = out_.size(); }
-  void end_record() {
-    const std::uint32_t c = crc32(out_.data() + mark_, out_.size() - mark_);
-    raw(&c, sizeof c);
-  }
-  std::string take() { return std::move(out_); }
-
- private:
-  std::string out_;
-  std::size_t mark_ = 0;
-};
-
-class Reader {
- public:
-  Reader(const std::string& b, const std::string& file) : b_(b), file_(file) {}
-  void raw(void* p, std::size_t n) {
-    if (n == 0) return;  // empty vectors have no storage
-    if (n > b_.size() - pos_) fail();
-    std::memcpy(p, b_.data() + pos_, n);
-    pos_ += n;
-  }
-  std::uint64_t u64() {
-    std::uint64_t v;
-    raw(&v, sizeof v);
-    return v;
-  }
-  std::uint8_t u8() {
-    std::uint8_t v;
-    raw(&v, 1);
-    return v;
-  }
-  double f64() {
-    double v;
-    raw(&v, sizeof v);
-    return v;
-  }
-  std::size_t count(std::size_t elem) {
-    const std::uint64_t n = u64();
-    if (elem && n > (b_.size() - pos_) / elem) fail();
-    return static_cast<std::size_t>(n);
-  }
-  std::string str() {
-    const std::size_t n = count(1);
-    std::string s(n, '\0');
-    raw(s.data(), n);
-    return s;
-  }
-  Eigen::VectorXd vec() {
-    const std::size_t n = count(sizeof(double));
-    Eigen::VectorXd v(static_cast<Eigen::Index>(n));
-    raw(v.data(), sizeof(double) * n);
-    return v;
-  }
-  Eigen::MatrixXd mat() {
-    const std::size_t r = count(0), c = count(0);
-    if (c && r > (b_.size() - pos_) / sizeof(double) / c) fail();
-    Eigen::MatrixXd m(static_cast<Eigen::Index>(r), static_cast<Eigen::Index>(c));
-    raw(m.data(), sizeof(double) * r * c);
-    return m;
-  }
-  bool at_end() const { return pos_ == b_.size(); }
-  void begin_record() {
-    mark_ = pos_;
-    ++record_;
-  }
-  void end_record() {
-    const std::uint32_t want = crc32(b_.data() + mark_, pos_ - mark_);
-    std::uint32_t got = 0;
-    raw(&got, sizeof got);
-    if (got != want) fail();
-  }
-  // Damage can show as a bad checksum or as a length that runs past the end; either way
-  // the record being read is named.
-  [[noreturn]] void fail() const {
-    throw InputError(SourceLocation{file_, 0, 0, ""},
-                     "damaged checkpoint: record " + std::to_string(record_) +
-                         " is truncated or fails its checksum; delete the file to start over");
-  }
-
- private:
-  const std::string& b_;
-  const std::string& file_;
-  std::size_t pos_ = 0, mark_ = 0;
-  int record_ = 0;
+  Reader(const std::string& b, const std::string& file)
+      : detail::ByteReader(b, [file](int record) {
+          throw InputError(SourceLocation{file, 0, 0, ""},
+                           "damaged checkpoint: record " + std::to_string(record) +
+                               " is truncated or fails its checksum; delete the file to start over");
+        }) {}
 };
 
 void write_states(Writer& w, const std::vector<KsSolution>& states) {
@@ -147,12 +37,7 @@ void write_states(Writer& w, const std::vector<KsSolution>& states) {
     w.begin_record();
     w.u64(s.v_s.size());
     for (const auto& v : s.v_s) w.vec(v);
-    w.u64(s.warm.size());
-    for (const EigenWarmStart& e : s.warm) {
-      w.f64(e.lower_bound);
-      w.vec(e.previous.values);
-      w.mat(e.previous.vectors);
-    }
+    detail::write_warm_starts(w, s.warm);
     w.end_record();
   }
 }
@@ -165,12 +50,7 @@ std::vector<KsSolution> read_states(Reader& r) {
     r.begin_record();
     s.v_s.resize(r.count(8));
     for (auto& v : s.v_s) v = r.vec();
-    s.warm.resize(r.count(8));
-    for (EigenWarmStart& e : s.warm) {
-      e.lower_bound = r.f64();
-      e.previous.values = r.vec();
-      e.previous.vectors = r.mat();
-    }
+    s.warm = detail::read_warm_starts(r);
     r.end_record();
   }
   return out;

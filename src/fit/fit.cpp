@@ -207,6 +207,7 @@ class Engine {
       : spec_(spec), run_(run), t0_(Clock::now()) {
     GradientOptions g = spec.gradient;
     g.threads = spec.options.threads;
+    g.communicator = run.communicator;
     g.mode = spec.options.optimizer == FitOptions::Optimizer::Lbfgs ? GradientOptions::Mode::Adjoint
                                                                       : GradientOptions::Mode::Tangent;
     train_ = std::make_unique<GradientProblem>(spec.systems, spec.parameters, spec.training, g);
@@ -237,6 +238,16 @@ class Engine {
   FitSnapshot snapshot(const Eigen::VectorXd& theta, bool with_jacobian, Eigen::MatrixXd* jacobian,
                        Eigen::VectorXd* residuals);
   void uncertainty(FitResult& res, const Eigen::MatrixXd& J, const Eigen::VectorXd& r) const;
+  const Communicator& comm() const { return run_.communicator ? *run_.communicator : serial_communicator(); }
+  // A signal reaches the ranks at different moments; they agree on it where all of them
+  // ask (the optimizer runs in lockstep on every rank), so all stop at the same iteration.
+  bool stop_requested() const {
+    const bool mine = run_.stop && run_.stop->load();
+    if (comm().size() == 1) return mine;
+    for (const std::string& r : comm().all_gather(std::string(1, mine ? '1' : '0')))
+      if (r == "1") return true;
+    return false;
+  }
   double elapsed() const { return state_.seconds_before + std::chrono::duration<double>(Clock::now() - t0_).count(); }
   void message(const std::string& m) const {
     if (run_.observer) run_.observer->message(m);
@@ -298,7 +309,7 @@ bool Engine::lbfgs(const double* u, double* cost, double* grad) const {
   FitLogEntry fresh;
   if (!e) {
     ensure_restored();
-    if (run_.stop && run_.stop->load()) return false;  // end the line search quickly; not logged
+    if (stop_requested()) return false;  // end the line search quickly; not logged
     fresh.type = FitLogEntry::Type::Gradient;
     fresh.theta = theta;
     try {
@@ -335,7 +346,7 @@ bool Engine::lm(const double* x, double* residuals, double* jacobian) const {
   const FitLogEntry* e = replay(type, theta);
   if (!e) {
     ensure_restored();
-    if (run_.stop && run_.stop->load()) return false;
+    if (stop_requested()) return false;
     FitLogEntry fresh;
     fresh.type = type;
     fresh.theta = theta;
@@ -413,7 +424,7 @@ ceres::CallbackReturnType Engine::iteration(const ceres::IterationSummary& s, co
   state_.iterations.push_back(it);
   history_.push_back(it);
   if (run_.observer) run_.observer->iteration(it);
-  const bool stop = (run_.stop && run_.stop->load()) ||
+  const bool stop = stop_requested() ||
                     (run_.stop_after_iterations >= 0 && it.iteration >= run_.stop_after_iterations);
   if (stop) {
     interrupted_ = true;
@@ -425,7 +436,7 @@ ceres::CallbackReturnType Engine::iteration(const ceres::IterationSummary& s, co
 }
 
 void Engine::write_checkpoint(const std::pair<std::vector<KsSolution>, std::vector<KsSolution>>* states) const {
-  if (run_.checkpoint.empty()) return;
+  if (run_.checkpoint.empty() || comm().rank() != 0) return;  // one writer; every rank holds the same state
   FitCheckpointState st = state_;
   st.seconds_before = elapsed();
   if (states) {
@@ -672,7 +683,7 @@ FitResult Engine::run() {
   ensure_restored();
   // A signal during a line search makes the remaining evaluations fail fast (not logged), so
   // Ceres may stop without calling back: the logged evaluations are still exact to replay.
-  if (!interrupted_ && run_.stop && run_.stop->load()) {
+  if (!interrupted_ && stop_requested()) {
     interrupted_ = true;
     write_checkpoint();
   }

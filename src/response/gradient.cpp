@@ -7,6 +7,8 @@
 #include <sstream>
 
 #include "common/threads.hpp"
+#include "parallel/distribute.hpp"
+#include "parallel/transport.hpp"
 #include "stillpoint/common/errors.hpp"
 #include "stillpoint/xc/model_functional.hpp"
 #include "stillpoint/xc/on_mesh.hpp"
@@ -298,6 +300,13 @@ GradientProblem::GradientProblem(std::vector<SystemSpec> systems, std::vector<Pa
     if (used[s]) active_.push_back(static_cast<int>(s));
   options_.threads = std::max(1, options_.threads);
   warm_.resize(systems_.size());
+  // Until measured, a system's cost is guessed as nodes x (electrons + 1): the states solved
+  // per iteration grow with the electrons, each solve with the nodes.
+  for (int s : active_) {
+    const double nodes = grid_cost(systems_[s].grid, systems_[s].geometry, GridUse::Banded).nodes;
+    scf_cost_.push_back(nodes * (systems_[s].electron_count() + 1.0));
+  }
+  grad_cost_ = scf_cost_;
 }
 
 bool GradientProblem::residual_form() const {
@@ -329,6 +338,16 @@ struct SolveStats {
     ++solves;
     iterations += R.last_iterations();
     worst_residual = std::max(worst_residual, R.last_residual());
+  }
+  void write(detail::ByteWriter& w) const {
+    w.i64(solves);
+    w.i64(iterations);
+    w.f64(worst_residual);
+  }
+  void read(detail::ByteReader& r) {
+    solves = static_cast<int>(r.i64());
+    iterations = static_cast<int>(r.i64());
+    worst_residual = r.f64();
   }
   template <class Result>
   void add_to(Result& r) const {
@@ -445,6 +464,10 @@ void rethrow_failures(const std::vector<std::exception_ptr>& errors, const std::
 
 }  // namespace
 
+const Communicator& GradientProblem::comm() const {
+  return options_.communicator ? *options_.communicator : serial_communicator();
+}
+
 std::shared_ptr<const GradientProblem::Cache> GradientProblem::solve(const Eigen::VectorXd& theta, const ScfOptions* scf) {
   if (!scf && cache_ && cache_->theta.size() == theta.size() && (cache_->theta.array() == theta.array()).all())
     return cache_;
@@ -456,17 +479,28 @@ std::shared_ptr<const GradientProblem::Cache> GradientProblem::solve(const Eigen
   c->solutions.resize(specs.size());
   const ScfOptions& opt = scf ? *scf : options_.scf;
   const int na = static_cast<int>(active_.size());
-  const auto errors = detail::parallel_for(na, options_.threads, [&](int i) {
-    const int s = active_[i];
-    auto P = std::make_unique<KsProblem>(specs[s]);
-    P->set_density_threshold(options_.density_threshold);
-    const KsSolution* start = warm_[s].v_s.empty() ? nullptr : &warm_[s];
-    c->solutions[s] = solve_scf(*P, opt, start);
-    c->problems[s] = std::move(P);
-  });
+  const auto errors = detail::distributed_for(
+      comm(), na, options_.threads, scf_cost_,
+      [&](int i) {
+        const int s = active_[i];
+        auto P = std::make_unique<KsProblem>(specs[s]);
+        P->set_density_threshold(options_.density_threshold);
+        const KsSolution* start = warm_[s].v_s.empty() ? nullptr : &warm_[s];
+        c->solutions[s] = solve_scf(*P, opt, start);
+        c->problems[s] = std::move(P);
+      },
+      [&](int i) { return detail::pack_solution(c->solutions[active_[i]]); },
+      [&](int i, const std::string& bytes) { c->solutions[active_[i]] = detail::unpack_solution(bytes); });
   std::vector<std::string> names;
   for (int s : active_) names.push_back(systems_[s].name);
   rethrow_failures(errors, names);  // warm_ untouched on failure
+  // The loss, the reports and any rank's next share read every system's discretization
+  // (cheap next to its SCF).
+  for (int s : active_)
+    if (!c->problems[s]) {
+      c->problems[s] = std::make_unique<KsProblem>(specs[s]);
+      c->problems[s]->set_density_threshold(options_.density_threshold);
+    }
   for (int s : active_) warm_[s] = c->solutions[s];
   c->scf_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   if (scf) {
@@ -503,16 +537,25 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
   res.term_quantities = L.term_quantities;
   const int np = static_cast<int>(params_.size());
   const int na = static_cast<int>(active_.size());
-  std::vector<Eigen::VectorXd> g(na, Eigen::VectorXd::Zero(np));
-  std::vector<SolveStats> stats(na);
-  const auto errors = detail::parallel_for(na, options_.threads, [&](int i) {
+  // Work items: one per system, or under MPI in tangent mode (one solve per parameter) each
+  // system's parameters in `chunks` contiguous blocks, so that the parameter directions are
+  // shared out too. Every component is computed by the same operations either way.
+  const bool tangent = options_.mode == GradientOptions::Mode::Tangent;
+  const int chunks = tangent ? std::clamp(comm().size(), 1, std::max(np, 1)) : 1;
+  auto block = [&](int j) { return std::pair<int, int>{(j % chunks) * np / chunks, (j % chunks + 1) * np / chunks}; };
+  const int items = na * chunks;
+  std::vector<Eigen::VectorXd> g(items, Eigen::VectorXd::Zero(np));
+  std::vector<SolveStats> stats(items);
+  const auto errors = detail::distributed_for(comm(), items, options_.threads, grad_cost_, [&](int j) {
+    const int i = j / chunks;
+    const auto [p0, p1] = block(j);
     const int s = active_[i];
     const KsProblem& P = *c->problems[s];
     const KsSolution& S = c->solutions[s];
     // Energy part: stationarity, no solve.
     if (L.dE[s] != 0.0)
-      for (int p = 0; p < np; ++p)
-        if (acts_on(params_[p], s)) g[i](p) += L.dE[s] * explicit_energy_derivative(P, S, params_[p]);
+      for (int p = p0; p < p1; ++p)
+        if (acts_on(params_[p], s)) g[j](p) += L.dE[s] * explicit_energy_derivative(P, S, params_[p]);
     const bool needs_response = L.dn[s].cwiseAbs().maxCoeff() > 0.0 || !L.deps[s].empty();
     if (!needs_response) return;
     const Response R(P, S, options_.response);
@@ -520,37 +563,52 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
     const Eigen::VectorXd gn = R.pack(dn_spin);
     Eigen::VectorXd geps = Eigen::VectorXd::Zero(R.size());
     for (const auto& [lv, d] : L.deps[s]) geps += d * R.eigenvalue_gradient(lv.channel, lv.state);
-    if (options_.mode == GradientOptions::Mode::Adjoint) {
+    if (!tangent) {
       const Eigen::VectorXd gv = R.chi0(gn) + geps;
       const Eigen::VectorXd zeta = R.solve_adjoint(gv);
-      stats[i].add(R);
+      stats[j].add(R);
       const auto zs = R.unpack(zeta);
       const Eigen::VectorXd& W = P.mesh().density_weight();
       for (int p = 0; p < np; ++p) {
         if (!acts_on(params_[p], s)) continue;
         if (params_[p].kind == ParameterRef::Kind::GridPotential) {
           const int k = params_[p].index;
-          for (int sp = 0; sp < P.nspin(); ++sp) g[i](p) += W(k) * zs[sp](k);
+          for (int sp = 0; sp < P.nspin(); ++sp) g[j](p) += W(k) * zs[sp](k);
         } else {
-          g[i](p) += R.dot(zeta, R.pack(parameter_potential(P, S, params_[p])));
+          g[j](p) += R.dot(zeta, R.pack(parameter_potential(P, S, params_[p])));
         }
       }
     } else {
-      for (int p = 0; p < np; ++p) {
+      for (int p = p0; p < p1; ++p) {
         if (!acts_on(params_[p], s)) continue;
         const Eigen::VectorXd vdot = R.solve_tangent(R.pack(parameter_potential(P, S, params_[p])));
-        stats[i].add(R);
-        g[i](p) += R.dot(gn, R.chi0(vdot)) + R.dot(geps, vdot);
+        stats[j].add(R);
+        g[j](p) += R.dot(gn, R.chi0(vdot)) + R.dot(geps, vdot);
       }
     }
+  }, [&](int j) {
+    detail::ByteWriter w;
+    w.vec(g[j]);
+    stats[j].write(w);
+    return w.take();
+  }, [&](int j, const std::string& bytes) {
+    detail::ByteReader r = detail::message_reader(bytes);
+    g[j] = r.vec();
+    stats[j].read(r);
   });
   std::vector<std::string> names;
-  for (int s : active_) names.push_back(systems_[s].name);
+  for (int j = 0; j < items; ++j) names.push_back(systems_[active_[j / chunks]].name);
   rethrow_failures(errors, names);
   res.gradient = Eigen::VectorXd::Zero(np);
-  for (int i = 0; i < na; ++i) {  // fixed order: identical sums for any thread count
-    res.gradient += g[i];
-    stats[i].add_to(res);
+  for (int i = 0; i < na; ++i) {  // fixed order: identical sums for any thread or rank count
+    // A system's blocks touch disjoint components, so joining them first changes no bit.
+    Eigen::VectorXd gi = g[i * chunks];
+    for (int k = 1; k < chunks; ++k) {
+      const auto [p0, p1] = block(i * chunks + k);
+      gi.segment(p0, p1 - p0) = g[i * chunks + k].segment(p0, p1 - p0);
+    }
+    res.gradient += gi;
+    for (int k = 0; k < chunks; ++k) stats[i * chunks + k].add_to(res);
   }
   res.scf_seconds = c->scf_seconds;
   res.gradient_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t1).count();
@@ -618,7 +676,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
   std::vector<Eigen::MatrixXd> dn(systems_.size());          // nodes x params
   std::vector<Eigen::VectorXd> deps(loss_.size());           // per eigenvalue term
   std::vector<SolveStats> stats(na);
-  const auto errors = detail::parallel_for(na, options_.threads, [&](int i) {
+  const auto errors = detail::distributed_for(comm(), na, options_.threads, grad_cost_, [&](int i) {
     const int s = active_[i];
     const KsProblem& P = *c->problems[s];
     const KsSolution& S = c->solutions[s];
@@ -648,6 +706,23 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
       dn[s].col(p) = tot;
       for (std::size_t e = 0; e < eig_terms.size(); ++e) deps[eig_terms[e]](p) = R.dot(eig_grad[e], vdot);
     }
+  }, [&](int i) {
+    const int s = active_[i];
+    detail::ByteWriter w;
+    w.vec(dE[s]);
+    w.mat(dn[s]);
+    for (std::size_t t = 0; t < loss_.size(); ++t)
+      if (loss_[t].kind == LossTerm::Kind::Eigenvalue && loss_[t].system == s) w.vec(deps[t]);
+    stats[i].write(w);
+    return w.take();
+  }, [&](int i, const std::string& bytes) {
+    const int s = active_[i];
+    detail::ByteReader r = detail::message_reader(bytes);
+    dE[s] = r.vec();
+    dn[s] = r.mat();
+    for (std::size_t t = 0; t < loss_.size(); ++t)
+      if (loss_[t].kind == LossTerm::Kind::Eigenvalue && loss_[t].system == s) deps[t] = r.vec();
+    stats[i].read(r);
   });
   std::vector<std::string> names;
   for (int s : active_) names.push_back(systems_[s].name);
@@ -696,13 +771,33 @@ Eigen::VectorXd GradientProblem::finite_difference_gradient(const Eigen::VectorX
     const double lb = loss(b, &tight);
     return (la - lb) / (2.0 * h);
   };
-  for (int p = 0; p < theta.size(); ++p) {
-    const double d1 = central(p, steps(p)), d2 = central(p, 0.5 * steps(p));
-    g(p) = (4.0 * d2 - d1) / 3.0;
-    if (progress) progress(p + 1, static_cast<int>(theta.size()));
-  }
+  // The components are independent: under MPI each rank computes its share of them with its
+  // own (serial) solves, all from the same base warm starts, so every value equals the serial one.
+  const Communicator* all = options_.communicator;
+  options_.communicator = nullptr;
+  int done = 0;
+  std::vector<double> cost(static_cast<std::size_t>(theta.size()), 1.0);
+  const auto errors = detail::distributed_for(
+      all ? *all : serial_communicator(), static_cast<int>(theta.size()), 1, cost,
+      [&](int p) {
+        const double d1 = central(p, steps(p)), d2 = central(p, 0.5 * steps(p));
+        g(p) = (4.0 * d2 - d1) / 3.0;
+        if (progress) progress(++done, static_cast<int>(theta.size()));
+      },
+      [&](int p) {
+        detail::ByteWriter w;
+        w.f64(g(p));
+        return w.take();
+      },
+      [&](int p, const std::string& bytes) {
+        detail::ByteReader r = detail::message_reader(bytes);
+        g(p) = r.f64();
+      });
+  options_.communicator = all;
   warm_ = base;
   cache_.reset();
+  for (const auto& e : errors)
+    if (e) std::rethrow_exception(e);
   return g;
 }
 

@@ -10,6 +10,7 @@
 #include <vector>
 
 #include "stillpoint/ks/scf.hpp"
+#include "stillpoint/parallel/communicator.hpp"
 
 namespace stillpoint {
 
@@ -36,6 +37,9 @@ struct CheckOptions {
   ScfOptions scf;
   /// Called with one line per finished (Z, charge, approximation) group.
   std::function<void(const std::string&)> progress;
+  /// The ranks the atoms are shared out over (the report is the same on every rank and equal
+  /// to a serial run's); nullptr: this process alone. Not owned.
+  const Communicator* communicator = nullptr;
 };
 
 struct CheckResult {

@@ -24,6 +24,7 @@
 // electrons per bohr.
 #include <Eigen/Dense>
 #include <Eigen/Sparse>
+#include <functional>
 #include <optional>
 #include <string>
 #include <utility>
@@ -32,6 +33,7 @@
 #include "stillpoint/common/errors.hpp"
 #include "stillpoint/numerics/mesh.hpp"
 #include "stillpoint/ks/system.hpp"
+#include "stillpoint/parallel/communicator.hpp"
 
 namespace stillpoint {
 
@@ -274,6 +276,13 @@ struct ExactInput {
 /// `[exact.batch]`. Throws InputError (file:line:column: key: message).
 ExactInput read_exact_input(const std::string& path);
 ExactInput parse_exact_input(const std::string& text, const std::string& name);
+
+/// Every system of `input`, in order; under MPI each rank solves its share and every rank
+/// receives all results, bit for bit (equal to a serial run's). `started(i)` is called on the
+/// rank that solves system i as it starts. Stops at the first system that fails (in input
+/// order), with its error naming the system and where it was defined.
+std::vector<ExactResult> solve_exact_systems(const ExactInput& input, const Communicator& ranks = serial_communicator(),
+                                             const std::function<void(int)>& started = {});
 
 /// Human-readable summary of one result (units labelled).
 std::string format_exact_result(const ExactResult& r);

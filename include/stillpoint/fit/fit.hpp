@@ -167,6 +167,10 @@ struct FitRunOptions {
   /// Set asynchronously (signal handler) to stop at the end of the current iteration.
   const std::atomic<int>* stop = nullptr;
   FitObserver* observer = nullptr;
+  /// The ranks the systems are shared out over (GradientOptions::communicator); every rank
+  /// runs the same optimizer on the same numbers and only rank 0 writes the checkpoint.
+  /// nullptr: this process alone. Not owned.
+  const Communicator* communicator = nullptr;
   /// Test hooks: stop as if interrupted after this many iterations (-1: never); make the SCF
   /// of a trial point fail when the predicate says so.
   int stop_after_iterations = -1;

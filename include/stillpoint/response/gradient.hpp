@@ -14,6 +14,7 @@
 
 #include "stillpoint/response/response.hpp"
 #include "stillpoint/ks/scf.hpp"
+#include "stillpoint/parallel/communicator.hpp"
 
 namespace stillpoint {
 
@@ -88,6 +89,10 @@ struct GradientOptions {
   /// the same way whatever the count and sums are taken in system order, so results are
   /// bitwise identical for any thread count.
   int threads = 1;
+  /// The ranks the systems are shared out over (each rank solves its share with `threads`
+  /// threads; every rank then holds every result). nullptr: this process alone. Results are
+  /// bitwise identical for any number of ranks. Not owned; must outlive the problem.
+  const Communicator* communicator = nullptr;
 };
 
 struct GradientResult {
@@ -172,6 +177,7 @@ class GradientProblem {
  private:
   struct Cache;
   std::shared_ptr<const Cache> solve(const Eigen::VectorXd& theta, const ScfOptions* scf);
+  const Communicator& comm() const;
 
   std::vector<SystemSpec> systems_;
   std::vector<ParameterRef> params_;
@@ -182,6 +188,8 @@ class GradientProblem {
   std::vector<int> row_node_;     // residual row -> mesh node (density rows), else -1
   std::vector<KsSolution> warm_;  // last converged solution per system, for warm starts
   std::shared_ptr<const Cache> cache_;  // the solved systems at the last theta (default SCF options)
+  // Measured seconds per active system (SCF, derivative): the next call's assignment to ranks.
+  std::vector<double> scf_cost_, grad_cost_;
 };
 
 }  // namespace stillpoint
