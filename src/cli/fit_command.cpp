@@ -1,6 +1,7 @@
 // `stillpoint fit`: fit model functionals or potentials to reference data (docs/fit.md).
 #include <csignal>
 #include <cstdio>
+#include <cstdlib>
 #include <filesystem>
 #include <iostream>
 
@@ -27,10 +28,19 @@ extern "C" void on_signal(int sig) {
   std::signal(sig, SIG_DFL);  // a second Ctrl-C ends the process at once
 }
 
+// Test hook for the MPI tests: STILLPOINT_TEST_KILL_RANK_AT="R:N" makes rank R end itself with
+// SIGKILL after iteration N, as a node failure would (the job must end, --resume continue).
+void kill_hook(int iteration) {
+  static const char* spec = std::getenv("STILLPOINT_TEST_KILL_RANK_AT");
+  int rank = -1, at = -1;
+  if (spec && std::sscanf(spec, "%d:%d", &rank, &at) == 2 && rank == ranks().rank() && iteration == at) std::raise(SIGKILL);
+}
+
 class Progress final : public sp::FitObserver {
  public:
   explicit Progress(bool quiet) : quiet_(quiet) {}
   void iteration(const sp::FitIteration& it) override {
+    kill_hook(it.iteration);
     if (quiet_) return;
     if (!header_) {
       std::fprintf(stderr, "  iter            loss       |gradient|       validation    seconds   (loss units; docs/fit.md)\n");

@@ -72,9 +72,12 @@ std::vector<Eigen::VectorXd> unstack(const Eigen::VectorXd& x, int nspin) {
 }
 
 std::string format_step(const ScfStep& s) {
+  // The first iteration has no previous eigenvalues to compare with (the change is infinite).
+  char change[32] = "-";
+  if (std::isfinite(s.eigenvalue_change)) std::snprintf(change, sizeof change, "%.3e Ha", s.eigenvalue_change);
   char buf[160];
-  std::snprintf(buf, sizeof buf, "  iter %3d  E = %.12f Ha  residual = %.3e Ha  max d(eps) = %.3e Ha", s.iteration,
-                s.energy, s.residual, s.eigenvalue_change);
+  std::snprintf(buf, sizeof buf, "  iter %3d  E = %.12f Ha  residual = %.3e Ha  max d(eps) = %s", s.iteration, s.energy,
+                s.residual, change);
   return buf;
 }
 
