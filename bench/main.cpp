@@ -22,6 +22,7 @@ void exact_report();   // bench/exact_bench.cpp
 void invert_report();  // bench/invert_bench.cpp
 void fit_report();     // bench/fit_bench.cpp
 void atom_report();    // bench/atom_bench.cpp
+void ranks_report();   // bench/ranks_bench.cpp
 
 namespace sp = stillpoint;
 
@@ -266,12 +267,12 @@ void gradient_report(int nodes) {
 
 }  // namespace
 
-// --reports=LIST (comma-separated: scaling, eigensolver, gradient, atoms, exact, invert, fit; default
+// --reports=LIST (comma-separated: scaling, eigensolver, gradient, atoms, exact, invert, fit, ranks; default
 // all) picks the ratio reports; Google Benchmark's own flags pick its cases
 // (--benchmark_filter=NONE skips them), so one report can be re-measured in seconds.
 int main(int argc, char** argv) {
   openblas_set_num_threads(1);
-  std::string reports = "scaling,eigensolver,gradient,atoms,exact,invert,fit";
+  std::string reports = "scaling,eigensolver,gradient,atoms,exact,invert,fit,ranks";
   std::vector<char*> rest;
   for (int i = 0; i < argc; ++i) {
     const std::string a = argv[i];
@@ -301,5 +302,6 @@ int main(int argc, char** argv) {
   if (wanted("exact")) exact_report();
   if (wanted("invert")) invert_report();
   if (wanted("fit")) fit_report();
+  if (wanted("ranks")) ranks_report();
   return 0;
 }

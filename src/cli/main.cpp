@@ -27,6 +27,7 @@
 #include "stillpoint/ks/input.hpp"
 #include "stillpoint/check/reference_check.hpp"
 #include "stillpoint/ks/report.hpp"
+#include "stillpoint/parallel/solve_systems.hpp"
 #ifdef STILLPOINT_HAVE_MPI
 #include "stillpoint/parallel/mpi.hpp"
 #endif
@@ -125,29 +126,33 @@ int run_solve(const std::string& file, const std::string& out_dir, bool verbose,
     problems.back().set_density_threshold(in.density_threshold);
   }
 
-  // 2. Solve them all; print each summary as it is done.
-  std::vector<sp::KsSolution> solutions;
-  solutions.reserve(n);
-  for (std::size_t i = 0; i < n; ++i) {
-    if (!quiet)
-      std::cerr << "  solve [" << i + 1 << "/" << n << "] " << in.systems[i].name << " (" << problems[i].mesh().num_nodes()
-                << " nodes) ...\n";
-    try {
-      solutions.push_back(sp::solve_scf(problems[i], in.scf));
-    } catch (const sp::NumericalError& e) {
-      const sp::SourceLocation& w = in.system_locations[i];
-      throw sp::NumericalError("system '" + in.systems[i].name + "' (" + w.describe() + "): " + e.what() +
-                                   (out_dir.empty() ? "" : "; no output files were written"),
-                               e.details());
-    }
-    if (!solution_is_finite(solutions.back()))
-      throw sp::NumericalError("system '" + in.systems[i].name + "': the converged solution contains NaN or Inf" +
-                               (out_dir.empty() ? "" : "; no output files were written"));
-    std::cout << sp::format_solution(problems[i], solutions[i]) << std::flush;
-  }
+  // 2. Solve them all (under MPI each rank its share); print each summary in input order.
+  std::vector<sp::KsSolution> solutions = sp::solve_systems(
+      problems, in.scf, ranks(),
+      [&](int i) {
+        if (!quiet)
+          std::cerr << "  solve [" << i + 1 << "/" << n << "] " << in.systems[i].name << " ("
+                    << problems[i].mesh().num_nodes() << " nodes) ...\n";
+      },
+      [&](int i, const std::exception_ptr& e) {
+        try {
+          std::rethrow_exception(e);
+        } catch (const sp::NumericalError& x) {
+          const sp::SourceLocation& w = in.system_locations[i];
+          throw sp::NumericalError("system '" + in.systems[i].name + "' (" + w.describe() + "): " + x.what() +
+                                       (out_dir.empty() ? "" : "; no output files were written"),
+                                   x.details());
+        }
+      },
+      [&](int i, const sp::KsSolution& solution) {
+        if (!solution_is_finite(solution))
+          throw sp::NumericalError("system '" + in.systems[i].name + "': the converged solution contains NaN or Inf" +
+                                   (out_dir.empty() ? "" : "; no output files were written"));
+        std::cout << sp::format_solution(problems[i], solution) << std::flush;
+      });
 
   // 3. Write the files only when every system succeeded.
-  if (!out_dir.empty()) {
+  if (!out_dir.empty() && writes_files()) {
     for (std::size_t i = 0; i < n; ++i) {
       sp::write_solution_files(out_dir, problems[i], solutions[i]);
       std::cout << "wrote " << (fs::path(out_dir) / in.systems[i].name).string()

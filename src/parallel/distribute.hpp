@@ -11,6 +11,8 @@
 // the measured time of every item, so the next call balances by what items really took.
 #include <chrono>
 #include <exception>
+#include <stdexcept>
+#include <utility>
 #include <string>
 #include <vector>
 
@@ -28,13 +30,17 @@ ByteReader message_reader(const std::string& bytes);
 // `stop_at_first_error`: each rank works through its share in item order with one thread and
 // stops at its first failure, so the first failing item overall (the one a serial run stops at)
 // is always computed and reported, and a serial run does no work after it.
+//
+// distributed_for_owned takes the owner of every item instead (for a second pass over items
+// that must stay where the first pass left their data); `cost` still receives the times.
 template <class Body, class Pack, class Unpack>
-std::vector<std::exception_ptr> distributed_for(const Communicator& comm, int count, int threads, std::vector<double>& cost,
-                                                Body&& body, Pack&& pack, Unpack&& unpack,
-                                                bool stop_at_first_error = false) {
+std::vector<std::exception_ptr> distributed_for_owned(const Communicator& comm, int count, int threads,
+                                                      const std::vector<int>& owner, std::vector<double>& cost,
+                                                      Body&& body, Pack&& pack, Unpack&& unpack,
+                                                      bool stop_at_first_error = false) {
   cost.resize(static_cast<std::size_t>(std::max(count, 0)), 1.0);
+  if (static_cast<int>(owner.size()) != count) throw std::logic_error("distributed_for_owned: one owner per item");
   std::vector<int> mine;
-  const std::vector<int> owner = assign_by_cost(cost, comm.size());
   for (int i = 0; i < count; ++i)
     if (owner[i] == comm.rank()) mine.push_back(i);
   std::vector<double> seconds(mine.size(), 0.0);
@@ -92,6 +98,16 @@ std::vector<std::exception_ptr> distributed_for(const Communicator& comm, int co
     }
   }
   return errors;
+}
+
+template <class Body, class Pack, class Unpack>
+std::vector<std::exception_ptr> distributed_for(const Communicator& comm, int count, int threads, std::vector<double>& cost,
+                                                Body&& body, Pack&& pack, Unpack&& unpack,
+                                                bool stop_at_first_error = false) {
+  cost.resize(static_cast<std::size_t>(std::max(count, 0)), 1.0);
+  const std::vector<int> owner = assign_by_cost(cost, comm.size());
+  return distributed_for_owned(comm, count, threads, owner, cost, std::forward<Body>(body), std::forward<Pack>(pack),
+                               std::forward<Unpack>(unpack), stop_at_first_error);
 }
 
 }  // namespace stillpoint::detail

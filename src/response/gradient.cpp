@@ -193,9 +193,9 @@ struct LevelRef {
   double energy = 0.0;
 };
 
-LevelRef find_level(const KsProblem& P, const KsSolution& S, const LossTerm& t) {
+LevelRef find_level(const KsSolution& S, const LossTerm& t, const std::string& system_name) {
   LevelRef best;
-  const bool any_spin = P.nspin() == 1;
+  const bool any_spin = S.density.size() == 1;
   if (t.state == "homo" || t.state == "lumo") {
     const bool homo = t.state == "homo";
     double homo_e = -std::numeric_limits<double>::infinity();
@@ -214,7 +214,7 @@ LevelRef find_level(const KsProblem& P, const KsSolution& S, const LossTerm& t) 
   }
   if (best.channel < 0)
     throw located(t.where, "loss term '" + t.name + "': no state '" + t.state + "' (spin " + std::to_string(t.spin) +
-                     ") in system '" + P.spec().name + "'");
+                     ") in system '" + system_name + "'");
   return best;
 }
 
@@ -306,7 +306,7 @@ GradientProblem::GradientProblem(std::vector<SystemSpec> systems, std::vector<Pa
     const double nodes = grid_cost(systems_[s].grid, systems_[s].geometry, GridUse::Banded).nodes;
     scf_cost_.push_back(nodes * (systems_[s].electron_count() + 1.0));
   }
-  grad_cost_ = scf_cost_;
+  meshes_.resize(systems_.size());
 }
 
 bool GradientProblem::residual_form() const {
@@ -322,7 +322,10 @@ void GradientProblem::set_solutions(std::vector<KsSolution> solutions) {
 
 struct GradientProblem::Cache {
   Eigen::VectorXd theta;
-  std::vector<std::unique_ptr<KsProblem>> problems;  // null for inactive systems
+  std::vector<std::unique_ptr<KsProblem>> problems;  // null for inactive systems and, under MPI, other ranks' systems
+  std::vector<const Mesh*> meshes;                    // every active system's mesh
+  std::vector<int> owner;                             // rank that solved each active system
+  std::vector<SystemSpec> specs;                      // the systems at theta
   std::vector<KsSolution> solutions;
   double scf_seconds = 0.0;
 };
@@ -365,17 +368,18 @@ struct Partials {
   std::vector<std::vector<std::pair<LevelRef, double>>> deps;  // per system
 };
 
-Partials loss_partials(const std::vector<LossTerm>& terms, const std::vector<std::unique_ptr<KsProblem>>& problems,
-                       const std::vector<KsSolution>& solutions) {
+// `meshes`: per system, null for inactive ones.
+Partials loss_partials(const std::vector<LossTerm>& terms, const std::vector<const Mesh*>& meshes,
+                       const std::vector<KsSolution>& solutions, const std::vector<SystemSpec>& systems) {
   Partials P;
-  const std::size_t ns = problems.size();
+  const std::size_t ns = meshes.size();
   P.dE.assign(ns, 0.0);
   P.deps.resize(ns);
   P.dn.resize(ns);
   for (std::size_t s = 0; s < ns; ++s)
-    if (problems[s]) P.dn[s] = Eigen::VectorXd::Zero(problems[s]->mesh().num_nodes());
+    if (meshes[s]) P.dn[s] = Eigen::VectorXd::Zero(meshes[s]->num_nodes());
   for (const LossTerm& t : terms) {
-    const KsProblem& prob = *problems[t.system];
+    const Mesh& mesh = *meshes[t.system];
     const KsSolution& sol = solutions[t.system];
     auto outer = [&](double qv) {
       const double val = t.target ? t.weight * (qv - *t.target) * (qv - *t.target) : t.weight * qv;
@@ -388,7 +392,7 @@ Partials loss_partials(const std::vector<LossTerm>& terms, const std::vector<std
     switch (t.kind) {
       case LossTerm::Kind::Density: {
         const Eigen::VectorXd n = sol.total_density();
-        const Eigen::VectorXd& W = prob.mesh().density_weight();
+        const Eigen::VectorXd& W = mesh.density_weight();
         if (static_cast<int>(t.reference.size()) != n.size())
           throw InputError("loss term '" + t.name + "': the reference density has the wrong number of nodes");
         Eigen::VectorXd diff(n.size());
@@ -414,7 +418,7 @@ Partials loss_partials(const std::vector<LossTerm>& terms, const std::vector<std
         break;
       }
       case LossTerm::Kind::Eigenvalue: {
-        const LevelRef lv = find_level(prob, sol, t);
+        const LevelRef lv = find_level(sol, t, systems[t.system].name);
         P.deps[t.system].push_back({lv, outer(lv.energy)});
         break;
       }
@@ -477,10 +481,12 @@ std::shared_ptr<const GradientProblem::Cache> GradientProblem::solve(const Eigen
   c->theta = theta;
   c->problems.resize(specs.size());
   c->solutions.resize(specs.size());
+  c->specs = specs;
   const ScfOptions& opt = scf ? *scf : options_.scf;
   const int na = static_cast<int>(active_.size());
-  const auto errors = detail::distributed_for(
-      comm(), na, options_.threads, scf_cost_,
+  c->owner = assign_by_cost(scf_cost_, comm().size());
+  const auto errors = detail::distributed_for_owned(
+      comm(), na, options_.threads, c->owner, scf_cost_,
       [&](int i) {
         const int s = active_[i];
         auto P = std::make_unique<KsProblem>(specs[s]);
@@ -494,13 +500,21 @@ std::shared_ptr<const GradientProblem::Cache> GradientProblem::solve(const Eigen
   std::vector<std::string> names;
   for (int s : active_) names.push_back(systems_[s].name);
   rethrow_failures(errors, names);  // warm_ untouched on failure
-  // The loss, the reports and any rank's next share read every system's discretization
-  // (cheap next to its SCF).
-  for (int s : active_)
-    if (!c->problems[s]) {
-      c->problems[s] = std::make_unique<KsProblem>(specs[s]);
-      c->problems[s]->set_density_threshold(options_.density_threshold);
+  // The loss needs every system's mesh, not its whole discretization: the systems of other
+  // ranks get their mesh alone (cheap, and built once), so no rank repeats their set-up.
+  c->meshes.assign(specs.size(), nullptr);
+  for (int s : active_) {
+    if (c->problems[s]) {
+      c->meshes[s] = &c->problems[s]->mesh();
+      continue;
     }
+    if (!meshes_[s]) {
+      const SystemSpec& sp = systems_[s];
+      meshes_[s] = std::make_shared<const Mesh>(sp.geometry == Geometry::Radial ? Mesh::radial(sp.grid, sp.atom.Z)
+                                                                                 : Mesh::line(sp.grid));
+    }
+    c->meshes[s] = meshes_[s].get();
+  }
   for (int s : active_) warm_[s] = c->solutions[s];
   c->scf_seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   if (scf) {
@@ -513,13 +527,13 @@ std::shared_ptr<const GradientProblem::Cache> GradientProblem::solve(const Eigen
 
 double GradientProblem::loss(const Eigen::VectorXd& theta, const ScfOptions* scf) {
   const auto c = solve(theta, scf);
-  return loss_partials(loss_, c->problems, c->solutions).loss;
+  return loss_partials(loss_, c->meshes, c->solutions, systems_).loss;
 }
 
 GradientResult GradientProblem::terms(const Eigen::VectorXd& theta) {
   GradientResult res;
   const auto c = solve(theta, nullptr);
-  const Partials L = loss_partials(loss_, c->problems, c->solutions);
+  const Partials L = loss_partials(loss_, c->meshes, c->solutions, systems_);
   res.loss = L.loss;
   res.term_values = L.term_values;
   res.term_quantities = L.term_quantities;
@@ -531,7 +545,7 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
   GradientResult res;
   const auto c = solve(theta, nullptr);
   const auto t1 = std::chrono::steady_clock::now();
-  const Partials L = loss_partials(loss_, c->problems, c->solutions);
+  const Partials L = loss_partials(loss_, c->meshes, c->solutions, systems_);
   res.loss = L.loss;
   res.term_values = L.term_values;
   res.term_quantities = L.term_quantities;
@@ -546,11 +560,21 @@ GradientResult GradientProblem::evaluate(const Eigen::VectorXd& theta) {
   const int items = na * chunks;
   std::vector<Eigen::VectorXd> g(items, Eigen::VectorXd::Zero(np));
   std::vector<SolveStats> stats(items);
-  const auto errors = detail::distributed_for(comm(), items, options_.threads, grad_cost_, [&](int j) {
+  // Each system's derivative where its discretization already is (the rank that solved it);
+  // tangent blocks go round the ranks from there, and a rank without the system builds it.
+  std::vector<int> owner(static_cast<std::size_t>(items));
+  for (int j = 0; j < items; ++j) owner[j] = (c->owner[j / chunks] + j % chunks) % comm().size();
+  std::vector<double> seconds;
+  const auto errors = detail::distributed_for_owned(comm(), items, options_.threads, owner, seconds, [&](int j) {
     const int i = j / chunks;
     const auto [p0, p1] = block(j);
     const int s = active_[i];
-    const KsProblem& P = *c->problems[s];
+    std::unique_ptr<KsProblem> here;
+    if (!c->problems[s]) {
+      here = std::make_unique<KsProblem>(c->specs[s]);
+      here->set_density_threshold(options_.density_threshold);
+    }
+    const KsProblem& P = here ? *here : *c->problems[s];
     const KsSolution& S = c->solutions[s];
     // Energy part: stationarity, no solve.
     if (L.dE[s] != 0.0)
@@ -621,7 +645,7 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
   ResidualResult res;
   const auto c = solve(theta, nullptr);
   const auto t1 = std::chrono::steady_clock::now();
-  const Partials L = loss_partials(loss_, c->problems, c->solutions);
+  const Partials L = loss_partials(loss_, c->meshes, c->solutions, systems_);
   res.loss = L.loss;
   res.term_values = L.term_values;
   res.term_quantities = L.term_quantities;
@@ -633,13 +657,13 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
   for (int s : active_) n_total[s] = c->solutions[s].total_density();
   std::vector<LevelRef> levels(loss_.size());
   for (std::size_t t = 0; t < loss_.size(); ++t)
-    if (loss_[t].kind == LossTerm::Kind::Eigenvalue) levels[t] = find_level(*c->problems[loss_[t].system], c->solutions[loss_[t].system], loss_[t]);
+    if (loss_[t].kind == LossTerm::Kind::Eigenvalue) levels[t] = find_level(c->solutions[loss_[t].system], loss_[t], systems_[loss_[t].system].name);
   auto row_scale = [&](int r) {
     const LossTerm& t = loss_[row_term_[r]];
     if (t.kind != LossTerm::Kind::Density) return std::sqrt(t.weight);
     const int k = row_node_[r];
     const double reg = t.region.empty() ? 1.0 : t.region[k];
-    return std::sqrt(t.weight * c->problems[t.system]->mesh().density_weight()(k) * reg);
+    return std::sqrt(t.weight * c->meshes[t.system]->density_weight()(k) * reg);
   };
   for (int r = 0; r < m; ++r) {
     const LossTerm& t = loss_[row_term_[r]];
@@ -676,7 +700,8 @@ ResidualResult GradientProblem::residuals(const Eigen::VectorXd& theta, bool wit
   std::vector<Eigen::MatrixXd> dn(systems_.size());          // nodes x params
   std::vector<Eigen::VectorXd> deps(loss_.size());           // per eigenvalue term
   std::vector<SolveStats> stats(na);
-  const auto errors = detail::distributed_for(comm(), na, options_.threads, grad_cost_, [&](int i) {
+  std::vector<double> seconds;
+  const auto errors = detail::distributed_for_owned(comm(), na, options_.threads, c->owner, seconds, [&](int i) {
     const int s = active_[i];
     const KsProblem& P = *c->problems[s];
     const KsSolution& S = c->solutions[s];

@@ -61,6 +61,14 @@ case $case_name in
       same_stdout s.txt out-serial p.txt out-mpi
       same_tree out-serial out-mpi
     done ;;
+  solve)
+    for wf in solve-1d-molecule solve-atoms-gga; do
+      rm -rf out-serial out-mpi
+      (cd "$src/workflows" && "$bin" solve $wf.toml -q -o "$work/out-serial") > s.txt || fail "serial solve $wf"
+      (cd "$src/workflows" && mpi 2 "$bin" solve $wf.toml -q -o "$work/out-mpi") > p.txt || fail "mpirun solve $wf"
+      same_stdout s.txt out-serial p.txt out-mpi
+      same_tree out-serial out-mpi
+    done ;;
   check)
     "$bin" check "$src/basis-data/reference/nist-lda-lsd.csv" -q --report s.json --junit s.xml > s.txt || fail "serial check"
     mpi 2 "$bin" check "$src/basis-data/reference/nist-lda-lsd.csv" -q --report p.json --junit p.xml > p.txt || fail "mpirun check"

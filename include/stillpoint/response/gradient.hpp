@@ -188,8 +188,9 @@ class GradientProblem {
   std::vector<int> row_node_;     // residual row -> mesh node (density rows), else -1
   std::vector<KsSolution> warm_;  // last converged solution per system, for warm starts
   std::shared_ptr<const Cache> cache_;  // the solved systems at the last theta (default SCF options)
-  // Measured seconds per active system (SCF, derivative): the next call's assignment to ranks.
-  std::vector<double> scf_cost_, grad_cost_;
+  // Measured SCF seconds per active system: the next call's assignment to ranks.
+  std::vector<double> scf_cost_;
+  std::vector<std::shared_ptr<const Mesh>> meshes_;  // meshes of systems solved by other ranks
 };
 
 }  // namespace stillpoint
