@@ -213,25 +213,38 @@ class _TorchEvaluator:
                             "(module.double()), derivatives through the SCF need double precision")
         return out if self.per_volume else n * out
 
-    def jacobian(self, y, theta):
-        """d y_i / d theta_p as (parameters, points) by batched vector-Jacobian products."""
+    def jacobians(self, outputs, theta):
+        """d y_i / d theta_p of every output y (shape (points,)) as (parameters, points) arrays."""
         torch = self.torch
-        m, P = y.shape[0], theta.shape[0]
-        J = torch.zeros((P, m), dtype=torch.float64)
-        if P == 0 or not y.requires_grad:
-            return J
-        eye = torch.eye(m, dtype=torch.float64)
-        for a in range(0, m, 256):
-            rows = eye[a:a + 256]
-            try:
-                (g,) = torch.autograd.grad(y, theta, grad_outputs=rows, retain_graph=True, is_grads_batched=True,
-                                           allow_unused=True)
-            except RuntimeError:  # an operation without a batching rule: one product per point
-                g = [torch.autograd.grad(y, theta, grad_outputs=r, retain_graph=True, allow_unused=True)[0] for r in rows]
-                g = None if any(x is None for x in g) else torch.stack(g)
+        m, P = outputs[0].shape[0], theta.shape[0]
+        Y = torch.stack(outputs, 1)
+        J = torch.zeros((P, m, len(outputs)), dtype=torch.float64)
+        if P == 0 or not Y.requires_grad:
+            return [J[:, :, k] for k in range(len(outputs))]
+        if P <= m:
+            # Fewer parameters than points: g(u) = u . dY/dtheta is linear in u, and its
+            # gradient in u is one row of the Jacobian per parameter (P + 1 backward passes).
+            u = torch.zeros_like(Y, requires_grad=True)
+            (g,) = torch.autograd.grad(Y, theta, grad_outputs=u, create_graph=True, allow_unused=True)
             if g is not None:
-                J[:, a:a + rows.shape[0]] = g.T
-        return J
+                for p in range(P):
+                    if g[p].requires_grad:
+                        (row,) = torch.autograd.grad(g[p], u, retain_graph=True, allow_unused=True)
+                        if row is not None:
+                            J[p] = row
+        else:
+            # More parameters than points: one vector-Jacobian product per point and output.
+            eye = torch.eye(m, dtype=torch.float64)
+            for k in range(len(outputs)):
+                if not outputs[k].requires_grad:
+                    continue
+                for a in range(0, m, 256):
+                    rows = eye[a:a + 256]
+                    (g,) = torch.autograd.grad(outputs[k], theta, grad_outputs=rows, retain_graph=True,
+                                               is_grads_batched=True, allow_unused=True)
+                    if g is not None:
+                        J[:, a:a + rows.shape[0], k] = g.T
+        return [J[:, :, k] for k in range(len(outputs))]
 
     def __call__(self, rho_np, sigma_np, theta_np, order, want, one_d):
         torch = self.torch
@@ -272,10 +285,12 @@ class _TorchEvaluator:
                         out["v2sigma2"] = torch.stack([rows[2 + a][1][:, b] for a in range(3) for b in range(a, 3)],
                                                       1).numpy()
             if want:
-                out["de"] = self.jacobian(e, theta).numpy()
-                out["dvrho"] = torch.stack([self.jacobian(c, theta) for c in cols[:rho.shape[1]]], 2).numpy()
+                J = self.jacobians([e] + cols, theta)
+                ns = rho.shape[1]
+                out["de"] = J[0].numpy()
+                out["dvrho"] = torch.stack(J[1:1 + ns], 2).numpy()
                 if sigma is not None:
-                    out["dvsigma"] = torch.stack([self.jacobian(c, theta) for c in cols[rho.shape[1]:]], 2).numpy()
+                    out["dvsigma"] = torch.stack(J[1 + ns:], 2).numpy()
             return out
 
 

@@ -281,3 +281,52 @@ def test_names_geometry_and_variables_are_checked():
         sp.xc.numpy_term("bad name", numpy_xalpha)
     assert "line_only" in sp.xc.registered()
     assert term.remove() and "line_only" not in sp.xc.registered()
+
+
+class Polarized(torch.nn.Module):
+    """A GGA-type energy per particle of (n, zeta, s2) with every second derivative nonzero."""
+
+    def __init__(self, width):
+        super().__init__()
+        g = torch.Generator().manual_seed(3)
+        self.w = torch.nn.Parameter(0.3 * torch.randn(width, 3, generator=g, dtype=torch.float64))
+        self.v = torch.nn.Parameter(0.3 * torch.randn(width, generator=g, dtype=torch.float64))
+
+    def forward(self, n, zeta, s2):
+        x = torch.stack([n.log(), zeta, s2 / (1 + s2)], 1)
+        return -0.1 * (torch.tanh(x @ self.w.T) @ self.v) * (1 + zeta ** 2)
+
+
+@pytest.mark.parametrize("width", [2, 40], ids=["fewer parameters than points", "more parameters than points"])
+def test_evaluator_layout_matches_torch_functional_derivatives(width):
+    # torch.autograd.functional (a general-purpose library routine) on one point at a time
+    # against the vectorized evaluator in the libxc layout of include/stillpoint/xc/functional.hpp.
+    term = sp.xc.torch_term(f"layout_{width}", Polarized(width), variables=("n", "zeta", "s2"), geometry="atom")
+    rng = np.random.default_rng(4)
+    m = 7
+    rho = rng.uniform(0.05, 2.0, (m, 2))
+    sigma = rng.uniform(0.01, 1.0, (m, 3))
+    theta = term.initial()
+    out = term._evaluate(rho, sigma, theta, 2, True, False)
+    ev = term._evaluator
+
+    def e_point(x, th):
+        return ev.energy(x[None, :2], x[None, 2:], th, False)[0]
+
+    th = torch.from_numpy(theta)
+    for i in range(m):
+        x = torch.from_numpy(np.concatenate([rho[i], sigma[i]]))
+        H = torch.autograd.functional.hessian(lambda y: e_point(y, th), x).numpy()
+        g = torch.autograd.functional.jacobian(lambda y: e_point(y, th), x).numpy()
+        np.testing.assert_allclose(out["vrho"][i], g[:2], rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(out["vsigma"][i], g[2:], rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(out["v2rho2"][i], [H[0, 0], H[0, 1], H[1, 1]], rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(out["v2rhosigma"][i], H[:2, 2:].reshape(-1), rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(out["v2sigma2"][i], H[2:, 2:][np.triu_indices(3)], rtol=1e-12, atol=1e-14)
+        # Parameters: d e / d theta and d (de/dx) / d theta.
+        de = torch.autograd.functional.jacobian(lambda t: e_point(x, t), th).numpy()
+        mixed = torch.autograd.functional.jacobian(
+            lambda t: torch.autograd.functional.jacobian(lambda y: e_point(y, t), x, create_graph=True), th).numpy()
+        np.testing.assert_allclose(out["de"][:, i], de, rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(out["dvrho"][:, i, :], mixed[:2].T, rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(out["dvsigma"][:, i, :], mixed[2:].T, rtol=1e-12, atol=1e-14)
