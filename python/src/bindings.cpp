@@ -179,16 +179,36 @@ struct RaisedInCallback {
   py::object type, value, trace;
 };
 
+class PythonRaised : public sp::XcCallbackError {
+ public:
+  PythonRaised(const std::string& what, std::shared_ptr<RaisedInCallback> raised)
+      : sp::XcCallbackError(what), raised_(std::move(raised)) {}
+  void restore() const {
+    PyErr_Restore(raised_->type.inc_ref().ptr(), raised_->value.inc_ref().ptr(),
+                  raised_->trace.is_none() ? nullptr : raised_->trace.inc_ref().ptr());
+  }
+
+ private:
+  std::shared_ptr<RaisedInCallback> raised_;
+};
+
 [[noreturn]] void abandon(py::error_already_set& e, const std::string& label) {
   const std::string what = e.what();  // built now: it needs the GIL
-  auto raised = hold(RaisedInCallback{e.type(), e.value(), e.trace()});
-  throw sp::XcCallbackError("xc term '" + label + "': the callable raised " + what, std::move(raised));
+  py::object value = e.value();
+  // The user's own exception travels on; a note says which term's callable raised it.
+  if (py::hasattr(value, "add_note")) {
+    try {
+      value.attr("add_note")("raised in the callable of xc term '" + label + "', called by stillpoint");
+    } catch (py::error_already_set&) {
+    }
+  }
+  throw PythonRaised("xc term '" + label + "': the callable raised " + what,
+                     hold(RaisedInCallback{e.type(), value, e.trace()}));
 }
 
 [[noreturn]] void refuse(PyObject* kind, const std::string& message) {
   py::object exc = py::reinterpret_borrow<py::object>(kind)(message);
-  auto raised = hold(RaisedInCallback{py::reinterpret_borrow<py::object>(kind), exc, py::none()});
-  throw sp::XcCallbackError(message, std::move(raised));
+  throw PythonRaised(message, hold(RaisedInCallback{py::reinterpret_borrow<py::object>(kind), exc, py::none()}));
 }
 
 std::string shape_text(const std::vector<py::ssize_t>& shape) {
@@ -292,14 +312,10 @@ PYBIND11_MODULE(_core, m) {
       PyErr_SetString(numerical_error.ptr(), msg.c_str());
     } catch (const sp::OutputError& e) {
       PyErr_SetString(output_error.ptr(), e.what());
+    } catch (const PythonRaised& e) {
+      e.restore();  // the callable's own exception, with its traceback
     } catch (const sp::XcCallbackError& e) {
-      // The callable's own exception, raised again with its traceback.
-      if (const auto raised = std::static_pointer_cast<RaisedInCallback>(e.cause())) {
-        PyErr_Restore(raised->type.inc_ref().ptr(), raised->value.inc_ref().ptr(),
-                      raised->trace.is_none() ? nullptr : raised->trace.inc_ref().ptr());
-      } else {
-        PyErr_SetString(numerical_error.ptr(), e.what());
-      }
+      PyErr_SetString(numerical_error.ptr(), e.what());
     }
   });
 

@@ -234,6 +234,7 @@ def test_a_raising_callable_is_raised_again_and_the_interpreter_lives(tmp_path):
     with pytest.raises(KeyError, match="no such table") as info:
         sp.solve(system=system)
     assert "forward" in "".join(traceback.format_tb(info.value.__traceback__))  # the user's frame is kept
+    assert any("'callback:bad_raise'" in note for note in getattr(info.value, "__notes__", ["'callback:bad_raise'"]))
     # Through the adjoint with two systems on two threads, and through fit with a checkpoint.
     with pytest.raises(KeyError):
         sp.grad(system=[dict(system, name="a"), dict(system, name="b")], parameter=[term.parameter()],
@@ -330,3 +331,16 @@ def test_evaluator_layout_matches_torch_functional_derivatives(width):
         np.testing.assert_allclose(out["de"][:, i], de, rtol=1e-12, atol=1e-14)
         np.testing.assert_allclose(out["dvrho"][:, i, :], mixed[:2].T, rtol=1e-12, atol=1e-14)
         np.testing.assert_allclose(out["dvsigma"][:, i, :], mixed[2:].T, rtol=1e-12, atol=1e-14)
+
+
+def test_fit_trains_a_torch_term_parameter_with_both_optimizers():
+    # The built-in family at alpha = 0.7 makes the target energy (our own scenario).
+    target = sp.solve(system=dict(BE, xc=["model:xalpha"], xc_parameters={"model:xalpha": [0.7]}), scf=TIGHT)
+    term = sp.xc.torch_term("xa_fit", XAlpha(0.6), variables=("n_up", "n_down"), per_volume=True)
+    for optimizer in ("lbfgs", "levenberg_marquardt"):  # adjoint gradients, tangent Jacobians
+        r = sp.fit(system=[dict(BE, xc=[term.label])], scf=TIGHT,
+                   parameter=[term.parameter(lower=0.3, upper=1.2)],
+                   loss=[{"kind": "energy", "system": "Be", "target": target.energy["total"]}],
+                   fit={"optimizer": optimizer, "uncertainties": False})
+        assert r["parameters"] == ["callback:xa_fit.alpha"]
+        assert r["fitted"][0] == pytest.approx(0.7, abs=1e-6), optimizer

@@ -243,8 +243,10 @@ void register_xc_callback(std::shared_ptr<const XcCallback> cb) {
     if (!std::isfinite(cb->default_parameters[i]))
       throw InputError("xc callback '" + cb->name + "': parameter '" + cb->parameter_names[i] + "' is not finite");
   if (!cb->line && !cb->atom) throw InputError("xc callback '" + cb->name + "' is written for no geometry");
+  std::shared_ptr<const XcCallback> replaced;  // released outside the lock: it may hold foreign objects
   std::lock_guard<std::mutex> lock(registry_mutex());
-  registry()[cb->name] = std::move(cb);
+  std::swap(registry()[cb->name], cb);
+  replaced = std::move(cb);
 }
 
 bool remove_xc_callback(const std::string& name) {

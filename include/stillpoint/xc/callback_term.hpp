@@ -9,7 +9,6 @@
 // A callback is named in xc lists as "callback:<name>". The registry is process-wide, as the
 // model family registry is, because input readers resolve xc names from text.
 #include <cstddef>
-#include <exception>
 #include <functional>
 #include <memory>
 #include <stdexcept>
@@ -64,17 +63,12 @@ std::unique_ptr<XcTerm> make_callback_term(const std::string& name, const std::v
                                            const XcSettings& settings);
 
 /// A callback that failed with an error of its own world (a Python exception, say): the
-/// computation is abandoned, not retried, and whoever registered the callback can recover the
-/// original from `cause()`. Deliberately not a NumericalError, which fits and line searches
-/// treat as a rejected trial point.
+/// computation is abandoned, not retried. Deliberately not a NumericalError, which fits and
+/// line searches treat as a rejected trial point. Whoever registers a callback may throw a
+/// subclass carrying the original error and catch that subclass where the call returns.
 class XcCallbackError : public std::runtime_error {
  public:
-  XcCallbackError(const std::string& what, std::shared_ptr<void> cause)
-      : std::runtime_error(what), cause_(std::move(cause)) {}
-  const std::shared_ptr<void>& cause() const noexcept { return cause_; }
-
- private:
-  std::shared_ptr<void> cause_;
+  using std::runtime_error::runtime_error;
 };
 
 }  // namespace stillpoint
