@@ -248,13 +248,20 @@ def test_a_raising_callable_is_raised_again_and_the_interpreter_lives(tmp_path):
     assert ok.energy["total"] < 0
 
 
-def test_nan_wrong_shape_and_dtype_are_clear_errors():
+def test_nan_wrong_shape_and_dtype_are_clear_errors(tmp_path):
     nan = sp.xc.torch_term("bad_nan", Failing("nan"), variables=("rs",), geometry="line")
-    with pytest.raises(sp.NumericalError, match=r"'callback:bad_nan' returned a non-finite energy density at x = "):
+    with pytest.raises(sp.NumericalError, match=r"'callback:bad_nan' returned a non-finite energy density at x = "
+                                                r"-?[0-9.]+ bohr, where n = [0-9.e+-]+ \(bohr\^-1\)"):
         sp.solve(system=dict(HE_LINE, xc=["lda_x_1d_soft", nan.label]))
     shape = sp.xc.torch_term("bad_shape", Failing("shape"), variables=("rs",), geometry="line")
     with pytest.raises(ValueError, match=r"'callback:bad_shape'.*shape \(\d+,\) for \d+ points"):
         sp.solve(system=dict(HE_LINE, xc=["lda_x_1d_soft", shape.label]))
+    # Neither leaves a file behind, even from a fit with a checkpoint.
+    for term, error in ((nan, sp.NumericalError), (shape, ValueError)):
+        with pytest.raises(error):
+            sp.fit(system=[dict(HE_LINE, xc=["lda_x_1d_soft", term.label])], parameter=[term.parameter()],
+                   loss=[{"kind": "energy", "system": "He", "target": -2.0}], checkpoint=tmp_path / "run.ckpt")
+    assert list(tmp_path.iterdir()) == []
     single = sp.xc.torch_term("bad_dtype", Failing("float32"), variables=("rs",), geometry="line")
     with pytest.raises(TypeError, match="float64"):
         sp.solve(system=dict(HE_LINE, xc=["lda_x_1d_soft", single.label]))

@@ -212,8 +212,9 @@ class CallbackTerm final : public XcTerm {
       m << (ns == 1 ? ", sigma = " : ", sigma (uu, ud, dd) = ");
       for (int a = 0; a < nsig; ++a) m << (a ? ", " : "") << in.sigma[nsig * i + a];
     }
-    m << " (" << (settings_.one_dimensional ? "bohr^-1, bohr^-4" : "bohr^-3, bohr^-8")
-      << "); make the callable finite for every density above the density threshold, e.g. by clamping its inputs";
+    const bool sigma = cb_->needs_gradient && !in.sigma.empty();
+    m << " (" << (settings_.one_dimensional ? "bohr^-1" : "bohr^-3")
+      << (sigma ? (settings_.one_dimensional ? ", bohr^-4" : ", bohr^-8") : "") << "); make the callable finite for every density above the density threshold, e.g. by clamping its inputs";
     throw NonFiniteModelError("xc term '" + name() + "' returned a non-finite " + what, m.str(), std::move(rho));
   }
 
