@@ -6,17 +6,20 @@ A term is registered under a name and then used like any other in xc lists, as
 every point of the mesh at once and checks what comes back. Hartree atomic units: energies per
 volume in hartree/bohr (line) or hartree/bohr³ (atoms), densities in bohr⁻¹ or bohr⁻³.
 
-Two kinds::
+For example::
 
     import torch, stillpoint as sp
     class Corr(torch.nn.Module):              # eps_c(r_s) per particle, hartree
         def __init__(self):
             super().__init__()
-            self.net = torch.nn.Sequential(torch.nn.Linear(1, 8), torch.nn.Tanh(), torch.nn.Linear(8, 1))
+            self.net = torch.nn.Sequential(torch.nn.Linear(1, 8), torch.nn.Tanh(),
+                                           torch.nn.Linear(8, 1)).double()
         def forward(self, rs):
             return -0.1 * torch.nn.functional.softplus(self.net(rs[:, None]))[:, 0]
     term = sp.xc.torch_term("nn_c", Corr(), variables=("rs",))
     he = sp.solve(system={..., "xc": ["lda_x_1d_soft", term.label]})
+
+Two kinds:
 
 - :func:`torch_term`: a ``torch.nn.Module`` of local variables (``VARIABLES``); every
   derivative the library needs comes from autograd: first derivatives for the potential,

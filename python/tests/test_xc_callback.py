@@ -351,3 +351,16 @@ def test_fit_trains_a_torch_term_parameter_with_both_optimizers():
                    fit={"optimizer": optimizer, "uncertainties": False})
         assert r["parameters"] == ["callback:xa_fit.alpha"]
         assert r["fitted"][0] == pytest.approx(0.7, abs=1e-6), optimizer
+
+
+def test_worker_threads_give_the_same_gradient():
+    # grad(threads=2) runs the callable from two library threads, one at a time under the GIL;
+    # the library promises results independent of the thread count (docs/grad.md).
+    term = sp.xc.torch_term("net_threads", SmallNet(seed=2), variables=("rs",), geometry="line")
+    systems = [dict(HE_LINE, name=f"Z{k}", nucleus=[{"charge": z, "position": 0.0, "softening": 1.0}],
+                    charge=z - 2.0, xc=["lda_x_1d_soft", term.label]) for k, z in enumerate((1.5, 2.5))]
+    loss = [{"kind": "eigenvalue", "system": s["name"], "state": "homo", "target": -0.5} for s in systems]
+    one = sp.grad(system=systems, parameter=[term.parameter()], loss=loss, threads=1)
+    two = sp.grad(system=systems, parameter=[term.parameter()], loss=loss, threads=2)
+    assert one["loss"] == two["loss"]
+    np.testing.assert_array_equal(one["gradient"], two["gradient"])
