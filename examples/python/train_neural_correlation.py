@@ -76,8 +76,9 @@ for z in train_z + valid_z:
     models[s["name"]] = spt.KohnSham(s, [term.parameter()], scf=scf)
 train = [ion(z)["name"] for z in train_z]
 valid = [ion(z)["name"] for z in valid_z]
-# Energies in hartree; densities weighted so that 1e-3 electrons of misplaced charge count
-# about as much as 1 mHa of energy error.
+# Loss per ion: (E - E_exact)^2 in hartree^2 plus DENSITY_WEIGHT * sum_k W_k (n_k - n_exact,k)^2,
+# the squared L2 distance of the densities (electrons^2/bohr, taken as a number). The density
+# term keeps the network from buying energies with wrong densities.
 DENSITY_WEIGHT = 1.0
 
 
@@ -117,7 +118,7 @@ for it in range(iterations + 1):
     if not (math.isfinite(t_loss) and math.isfinite(v_loss)):
         raise SystemExit("the loss is not finite; lower the learning rate or start the network elsewhere")
     rows.append((it, t_loss, v_loss))
-    print(f"iteration {it:3d}: training loss {t_loss:.4e}, validation loss {v_loss:.4e} (hartree^2)")
+    print(f"iteration {it:3d}: training loss {t_loss:.4e}, validation loss {v_loss:.4e}")
 
 term.assign(theta.detach().numpy())  # later inputs using the term start from the trained network
 after = energy_errors(train + valid, theta)
@@ -129,7 +130,7 @@ os.makedirs(args.output, exist_ok=True)
 csv_path = os.path.join(args.output, "loss_curves.csv")
 with open(csv_path, "w", newline="") as f:
     w = csv.writer(f)
-    w.writerow(["iteration", "training_loss_Ha2", "validation_loss_Ha2"])
+    w.writerow(["iteration", "training_loss", "validation_loss"])  # hartree^2 + electrons^2/bohr, see DENSITY_WEIGHT
     w.writerows((i, f"{t:.10e}", f"{v:.10e}") for i, t, v in rows)
 try:
     import matplotlib
@@ -143,7 +144,7 @@ else:
     ax.semilogy([r[0] for r in rows], [r[1] for r in rows], "o-", label="training")
     ax.semilogy([r[0] for r in rows], [r[2] for r in rows], "s--", label="validation (held back)")
     ax.set_xlabel("LBFGS iteration")
-    ax.set_ylabel("loss (hartree$^2$)")
+    ax.set_ylabel("loss (Ha$^2$ + density L2$^2$)")
     ax.legend()
     fig.tight_layout()
     png = os.path.join(args.output, "loss_curves.png")
