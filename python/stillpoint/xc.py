@@ -99,7 +99,7 @@ class PythonTerm:
         return dict({"kind": "xc_parameter", "term": self.label}, **keys)
 
     def remove(self):
-        """Unregisters the term (systems already built keep it)."""
+        """Unregisters the term (solved States keep it; later solves naming it fail)."""
         return _core.remove_xc_callback(self.name)
 
     def __repr__(self):
