@@ -45,6 +45,9 @@ struct XcCallback {
   bool line = true, atom = true;
   std::vector<std::string> parameter_names;
   std::vector<double> default_parameters;
+  /// Called from whichever thread computes (grad and fit solve systems in parallel), possibly
+  /// from several at once; it must serialize itself if it needs to (the Python adapter takes
+  /// the GIL).
   std::function<void(const XcCallbackRequest&, XcCallbackResult&)> evaluate;
 };
 
