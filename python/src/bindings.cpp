@@ -25,6 +25,7 @@
 #include "stillpoint/response/converged_state.hpp"
 #include "stillpoint/response/gradient.hpp"
 #include "stillpoint/response/input.hpp"
+#include "stillpoint/xc/callback_term.hpp"
 
 namespace py = pybind11;
 namespace sp = stillpoint;
@@ -160,6 +161,137 @@ class PyFitObserver : public sp::FitObserver {
   std::atomic<int>* stop_;
 };
 
+// A Python object owned by the library, which may drop it on any thread with or without the
+// GIL (a worker of a gradient, a State released while the library computes): the last owner
+// takes the GIL to release it, and leaves it alone once the interpreter is gone.
+template <class T>
+std::shared_ptr<T> hold(T obj) {
+  return std::shared_ptr<T>(new T(std::move(obj)), [](T* p) {
+    if (!Py_IsInitialized()) return;  // a leak at exit, not a crash
+    py::gil_scoped_acquire gil;
+    delete p;
+  });
+}
+
+// The exception a callable raised, kept whole (type, value, traceback) to be raised again
+// where the library's call returns to Python.
+struct RaisedInCallback {
+  py::object type, value, trace;
+};
+
+class PythonRaised : public sp::XcCallbackError {
+ public:
+  PythonRaised(const std::string& what, std::shared_ptr<RaisedInCallback> raised)
+      : sp::XcCallbackError(what), raised_(std::move(raised)) {}
+  void restore() const {
+    PyErr_Restore(raised_->type.inc_ref().ptr(), raised_->value.inc_ref().ptr(),
+                  raised_->trace.is_none() ? nullptr : raised_->trace.inc_ref().ptr());
+  }
+
+ private:
+  std::shared_ptr<RaisedInCallback> raised_;
+};
+
+[[noreturn]] void abandon(py::error_already_set& e, const std::string& label) {
+  const std::string what = e.what();  // built now: it needs the GIL
+  py::object value = e.value();
+  // The user's own exception travels on; a note says which term's callable raised it.
+  if (py::hasattr(value, "add_note")) {
+    try {
+      value.attr("add_note")("raised in the callable of xc term '" + label + "', called by stillpoint");
+    } catch (py::error_already_set&) {
+    }
+  }
+  throw PythonRaised("xc term '" + label + "': the callable raised " + what,
+                     hold(RaisedInCallback{e.type(), value, e.trace()}));
+}
+
+[[noreturn]] void refuse(PyObject* kind, const std::string& message) {
+  py::object exc = py::reinterpret_borrow<py::object>(kind)(message);
+  throw PythonRaised(message, hold(RaisedInCallback{py::reinterpret_borrow<py::object>(kind), exc, py::none()}));
+}
+
+std::string shape_text(const std::vector<py::ssize_t>& shape) {
+  std::string s = "(";
+  for (std::size_t i = 0; i < shape.size(); ++i) s.append(i ? ", " : "").append(std::to_string(shape[i]));
+  return s.append(shape.size() == 1 ? ",)" : ")");
+}
+
+// One returned array into the library's layout: it must hold exactly shape's values with the
+// leading dimension first (a component axis of length one may be left out).
+void take(const py::dict& d, const char* key, const std::vector<py::ssize_t>& shape, const std::string& label,
+          const char* meaning, std::vector<double>& to) {
+  if (!d.contains(key))
+    refuse(PyExc_ValueError, "xc term '" + label + "': the callable's result has no '" + key + "' (" + meaning +
+                                 ", shape " + shape_text(shape) + ")");
+  py::object v = d[key];
+  auto a = py::array_t<double, py::array::c_style | py::array::forcecast>::ensure(v);
+  if (!a) {
+    PyErr_Clear();
+    refuse(PyExc_TypeError, "xc term '" + label + "': '" + key + "' is a " +
+                                std::string(py::str(py::type::handle_of(v).attr("__name__"))) +
+                                ", not an array of numbers (" + meaning + ", shape " + shape_text(shape) + ")");
+  }
+  py::ssize_t want = 1;
+  for (auto n : shape) want *= n;
+  std::vector<py::ssize_t> got(a.shape(), a.shape() + a.ndim());
+  std::vector<py::ssize_t> squeezed = shape;
+  while (squeezed.size() > 1 && squeezed.back() == 1) squeezed.pop_back();
+  if (got != shape && got != squeezed)
+    refuse(PyExc_ValueError, "xc term '" + label + "': '" + key + "' has shape " + shape_text(got) + ", expected " +
+                                 shape_text(shape) + " (" + meaning + ")");
+  to.assign(a.data(), a.data() + want);
+}
+
+std::function<void(const sp::XcCallbackRequest&, sp::XcCallbackResult&)> python_evaluator(py::function fn,
+                                                                                         const std::string& label,
+                                                                                         bool gradient) {
+  auto f = hold(py::object(std::move(fn)));
+  return [f, label, gradient](const sp::XcCallbackRequest& q, sp::XcCallbackResult& r) {
+    py::gil_scoped_acquire gil;
+    const sp::XcPointData& p = *q.points;
+    const py::ssize_t np = static_cast<py::ssize_t>(p.np), ns = p.nspin, nsig = ns == 1 ? 1 : 3;
+    const py::ssize_t P = static_cast<py::ssize_t>(q.parameters->size());
+    py::object result;
+    try {
+      py::array_t<double> rho({np, ns});
+      std::copy(p.rho.begin(), p.rho.end(), rho.mutable_data());
+      py::object sigma = py::none();
+      if (gradient) {
+        py::array_t<double> s({np, nsig});
+        std::copy(p.sigma.begin(), p.sigma.end(), s.mutable_data());
+        sigma = s;
+      }
+      py::array_t<double> theta(P);
+      std::copy(q.parameters->begin(), q.parameters->end(), theta.mutable_data());
+      result = (*f)(rho, sigma, theta, q.order, q.parameter_derivatives, q.one_dimensional);
+    } catch (py::error_already_set& e) {
+      abandon(e, label);
+    }
+    if (!py::isinstance<py::dict>(result))
+      refuse(PyExc_TypeError, "xc term '" + label + "': the callable returned a " +
+                                  std::string(py::str(py::type::handle_of(result).attr("__name__"))) +
+                                  "; return a dict of arrays ('e', 'vrho', ...; docs/python.md)");
+    const py::dict d = result;
+    const py::ssize_t n2 = ns == 1 ? 1 : 3, n6 = ns == 1 ? 1 : 6;
+    take(d, "e", {np}, label, "energy per volume at every point", r.values.e);
+    take(d, "vrho", {np, ns}, label, "de/dn per point and spin", r.values.vrho);
+    if (gradient) take(d, "vsigma", {np, nsig}, label, "de/dsigma per point and invariant", r.values.vsigma);
+    if (q.order >= 2) {
+      take(d, "v2rho2", {np, n2}, label, "second derivatives in the densities, needed by the response", r.values.v2rho2);
+      if (gradient) {
+        take(d, "v2rhosigma", {np, n6}, label, "mixed second derivatives, needed by the response", r.values.v2rhosigma);
+        take(d, "v2sigma2", {np, n6}, label, "second derivatives in sigma, needed by the response", r.values.v2sigma2);
+      }
+    }
+    if (q.parameter_derivatives) {
+      take(d, "de", {P, np}, label, "de/dtheta per parameter and point", r.de);
+      take(d, "dvrho", {P, np, ns}, label, "dvrho/dtheta per parameter, point and spin", r.dvrho);
+      if (gradient) take(d, "dvsigma", {P, np, nsig}, label, "dvsigma/dtheta per parameter, point and invariant", r.dvsigma);
+    }
+  };
+}
+
 }  // namespace
 
 PYBIND11_MODULE(_core, m) {
@@ -180,8 +312,34 @@ PYBIND11_MODULE(_core, m) {
       PyErr_SetString(numerical_error.ptr(), msg.c_str());
     } catch (const sp::OutputError& e) {
       PyErr_SetString(output_error.ptr(), e.what());
+    } catch (const PythonRaised& e) {
+      e.restore();  // the callable's own exception, with its traceback
+    } catch (const sp::XcCallbackError& e) {
+      PyErr_SetString(numerical_error.ptr(), e.what());
     }
   });
+
+  // Callback xc terms (python/stillpoint/xc.py builds the callables). Registered callables
+  // are released before the interpreter goes away.
+  m.def(
+      "register_xc_callback",
+      [](const std::string& name, py::function evaluate, bool gradient, bool line, bool atom,
+         const std::vector<std::string>& parameter_names, const std::vector<double>& parameters) {
+        auto cb = std::make_shared<sp::XcCallback>();
+        cb->name = name;
+        cb->needs_gradient = gradient;
+        cb->line = line;
+        cb->atom = atom;
+        cb->parameter_names = parameter_names;
+        cb->default_parameters = parameters;
+        cb->evaluate = python_evaluator(std::move(evaluate), "callback:" + name, gradient);
+        sp::register_xc_callback(std::move(cb));
+      },
+      py::arg("name"), py::arg("evaluate"), py::arg("gradient"), py::arg("line"), py::arg("atom"),
+      py::arg("parameter_names"), py::arg("parameters"));
+  m.def("remove_xc_callback", &sp::remove_xc_callback, py::arg("name"));
+  m.def("xc_callback_names", &sp::xc_callback_names);
+  py::module_::import("atexit").attr("register")(py::cpp_function([] { sp::clear_xc_callbacks(); }));
 
   py::class_<sp::ScfOptions>(m, "ScfOptions", "SCF settings (docs/input.md, [scf]); hartree.")
       .def(py::init<>())

@@ -20,7 +20,8 @@ Errors raise :class:`InputError` (a ValueError: the input is wrong), :class:`Num
 message carries the residual history) or :class:`OutputError` (an OSError). The GIL is
 released while the library computes.
 
-The PyTorch bridge is :mod:`stillpoint.torch`.
+The PyTorch bridge is :mod:`stillpoint.torch`; exchange-correlation terms written in Python
+(torch modules or NumPy functions) are :mod:`stillpoint.xc`.
 """
 import os
 
@@ -43,6 +44,7 @@ from ._core import (  # noqa: F401  (re-exported)
     System,
 )
 from ._toml import dumps as _dumps
+from . import xc  # noqa: F401  (Python-defined xc terms: stillpoint.xc)
 
 __all__ = [
     "load", "solve", "check", "grad", "fit", "exact", "invert", "grad_input", "scf_options",

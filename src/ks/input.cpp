@@ -690,7 +690,7 @@ void read_xc_parameters(const Ctx& c, const toml::table& t, const std::string& p
     }
     const auto names = f.term(0).parameter_names();
     std::vector<double> values = f.term(0).parameters();
-    if (names.empty()) throw InputError(loc(c, v, kp), "'" + key + "' has no trainable parameters (only model: and formula: terms do)");
+    if (names.empty()) throw InputError(loc(c, v, kp), "'" + key + "' has no trainable parameters (only model:, formula: and callback: terms do)");
     if (const toml::array* a = v.as_array()) {
       values = number_list(c, v, kp);
       if (values.size() != names.size() && names.back() != "c" + std::to_string(names.size() - 1))

@@ -29,7 +29,7 @@ bool has_token(const std::string& name, const std::string& token) {
 
 std::string kind_of(const std::string& term_name) {
   const std::string name = lower(term_name);
-  if (name.rfind("formula:", 0) == 0) return "unclassified";
+  if (name.rfind("formula:", 0) == 0 || name.rfind("callback:", 0) == 0) return "unclassified";
   if (name.rfind("model:", 0) != 0) {
     // libxc knows what each of its functionals is.
     const int id = xc_functional_get_number(name.c_str());

@@ -10,6 +10,7 @@
 #include <sstream>
 
 #include "stillpoint/common/errors.hpp"
+#include "stillpoint/xc/callback_term.hpp"
 #include "stillpoint/xc/model_functional.hpp"
 #include "stillpoint/xc/soft_exchange_1d.hpp"
 
@@ -815,8 +816,11 @@ XcFunctional make_functional(const std::vector<std::string>& names, const XcSett
                          (near.empty() ? "" : "; did you mean '" + near + "'?"));
       }
       f.add(make_model_term(family, params, settings), weight);
+    } else if (nm.rfind("callback:", 0) == 0) {
+      f.add(make_callback_term(nm.substr(9), params, settings), weight);
     } else {
-      if (!params.empty()) throw InputError("functional '" + nm + "' has no trainable parameters (only model: terms do)");
+      if (!params.empty())
+        throw InputError("functional '" + nm + "' has no trainable parameters (only model:, formula: and callback: terms do)");
       f.add(make_libxc_term(nm, settings), weight);
     }
   }

@@ -127,7 +127,8 @@ std::unique_ptr<XcTerm> make_libxc_term(const std::string& name, const XcSetting
 /// The functional named by a list such as {"lda_x", "lda_c_vwn"}; an empty list or {"none"}
 /// gives no exchange-correlation (Hartree only). A number in front of a name with '*'
 /// ("0.5*gga_x_pbe") sets the term's weight.
-/// "model:<family>" names a trainable model family (model_functional.hpp); `parameters`
+/// "model:<family>" names a trainable model family (model_functional.hpp), "callback:<name>" a
+/// registered callback (callback_term.hpp); `parameters`
 /// (one list per term, empty = defaults) sets their parameters.
 XcFunctional make_functional(const std::vector<std::string>& names, const XcSettings& settings,
                              const std::vector<std::vector<double>>& parameters = {});
