@@ -304,6 +304,13 @@ int run_cli(int argc, char** argv, std::string& message) {
       check_output_dir(eopt.output);
       return run_exact(eopt);
     }
+    // One inversion, and a survey that shares its functionals over threads, are not shared
+    // over ranks: rank 0 does them and the others wait, rather than all writing the same files.
+    if ((*invert || *functionals) && ranks().size() > 1) {
+      if (ranks().rank() != 0) return 0;
+      std::cerr << "stillpoint: " << (*invert ? "invert" : "functionals") << " is not shared over MPI ranks; rank 0 runs it and the other "
+                << ranks().size() - 1 << " wait (docs/mpi.md)\n";
+    }
     if (*invert) {
       check_output_dir(iopt.output);
       return run_invert(iopt);

@@ -83,6 +83,14 @@ case $case_name in
       same_stdout s.txt out-serial p.txt out-mpi
       same_tree out-serial out-mpi
     done ;;
+  invert)
+    # Not shared over ranks: rank 0 alone runs it and writes, and says so.
+    rm -rf out-serial out-mpi
+    (cd "$src/workflows" && "$bin" invert invert-1d-lda.toml -q -o "$work/out-serial") > s.txt || fail "serial invert"
+    (cd "$src/workflows" && mpi 2 "$bin" invert invert-1d-lda.toml -q -o "$work/out-mpi") > p.txt 2> p.err || fail "mpirun invert"
+    grep -q "rank 0 runs it" p.err || fail "no note that rank 0 runs invert alone"
+    same_stdout s.txt out-serial p.txt out-mpi
+    same_tree out-serial out-mpi ;;
   failure)
     # Two systems: Ne converges on rank 0; H- with exchange only (its extra electron is not
     # bound in LDA, a fact of the trade) cannot converge, on rank 1 by its estimated cost.
