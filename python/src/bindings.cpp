@@ -762,7 +762,9 @@ PYBIND11_MODULE(_core, m) {
         d["loss"] = r.after.training_loss;
         d["initial_loss"] = r.before.training_loss;
         d["evaluations"] = r.evaluations;
-        d["iterations"] = static_cast<int>(r.history.size());
+        int iterations = 0;  // as fit.json counts: the history starts with iteration 0, the start
+        for (const auto& it : r.history) iterations = std::max(iterations, it.iteration);
+        d["iterations"] = iterations;
         py::list hist;
         for (const auto& it : r.history) {
           py::dict h;
