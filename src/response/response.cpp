@@ -6,6 +6,7 @@
 #include <sstream>
 
 #include "stillpoint/common/errors.hpp"
+#include "stillpoint/numerics/band_lu.hpp"
 #include "stillpoint/numerics/kinetic.hpp"
 #include "stillpoint/xc/model_functional.hpp"
 #include "stillpoint/xc/on_mesh.hpp"
@@ -24,9 +25,11 @@ struct ChannelData {
   // Sum over states: every eigenpair of the channel.
   Eigen::VectorXd eps_all;
   Eigen::MatrixXd c_all;
-  // Sternheimer: H~ and a positive-definite preconditioner (H~ - sigma)^{-1}.
+  // Sternheimer: H~, a positive-definite preconditioner (H~ - sigma)^{-1} below the spectrum,
+  // and per occupied state the banded LU of H~ - (eps_i - delta_i) (empty where unusable).
   SpMat H;
   std::unique_ptr<Ldlt> precond;
+  std::vector<BandLuFactor> near;
 };
 }  // namespace
 
@@ -93,6 +96,28 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
         d.precond = std::make_unique<Ldlt>(A);
         if (d.precond->info() == Eigen::Success && (d.precond->vectorD().array() > 0).all()) break;
         sigma -= std::max(1.0, std::abs(sigma));
+      }
+      // Just below eps_i, (H~ - mu)^{-1} on the complement of the computed states has
+      // eigenvalues 1/(lambda_j - eps_i + delta): against H~ - eps_i there the preconditioned
+      // spectrum lies in [g / (g + delta), 1] (g: the gap to the first state not computed), so
+      // CG needs a handful of steps where the shift below the spectrum needed tens to hundreds.
+      // The shift keeps a quarter of the distance to the state below, so the factor stays well
+      // conditioned on the directions that the projection removes anyway.
+      int kd = 0;
+      for (int j = 0; j < d.H.outerSize(); ++j)
+        for (SpMat::InnerIterator it(d.H, j); it; ++it) kd = std::max(kd, std::abs(static_cast<int>(it.row()) - j));
+      d.near.resize(k);
+      for (int i = 0; i < k; ++i) {
+        if (d.occ[i] == 0.0) continue;
+        double delta = 0.05 * std::max(std::abs(d.eps(i)), 0.2);
+        if (i > 0) delta = std::min(delta, 0.25 * (d.eps(i) - d.eps(i - 1)));
+        if (!(delta > 1e-4 * std::max(std::abs(d.eps(i)), 0.2))) continue;  // near-degenerate: the shift below the spectrum
+        BandLuFactor& f = d.near[i];
+        f.reset(I.nu, kd, kd);
+        for (int j = 0; j < d.H.outerSize(); ++j)
+          for (SpMat::InnerIterator it(d.H, j); it; ++it)
+            f.at(static_cast<int>(it.row()), j) = it.value() - (it.row() == j ? d.eps(i) - delta : 0.0);
+        if (f.factor() != 0) f = BandLuFactor{};
       }
     }
     I.ch.push_back(std::move(d));
@@ -208,7 +233,14 @@ Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv) const {
       const double bnorm = dvci.norm();
       if (!(rhs.norm() > I.opt.sternheimer_tolerance * bnorm)) continue;
       Eigen::VectorXd psi = Eigen::VectorXd::Zero(I.nu), r = rhs;
-      Eigen::VectorXd z = d.precond->solve(r);
+      const BandLuFactor* near = d.near.size() > static_cast<std::size_t>(i) && d.near[i].n > 0 ? &d.near[i] : nullptr;
+      auto precondition = [&](const Eigen::VectorXd& v) {
+        if (!near) return Eigen::VectorXd(d.precond->solve(v));
+        Eigen::VectorXd out = v;
+        near->solve(out.data());
+        return out;
+      };
+      Eigen::VectorXd z = precondition(r);
       project(z);
       Eigen::VectorXd p = z;
       double rz = r.dot(z);
@@ -223,7 +255,7 @@ Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv) const {
           conv = true;
           break;
         }
-        z = d.precond->solve(r);
+        z = precondition(r);
         project(z);
         const double rz_new = r.dot(z);
         p = z + (rz_new / rz) * p;
