@@ -355,6 +355,7 @@ PYBIND11_MODULE(_core, m) {
       .def_readwrite("krylov_tolerance", &sp::ResponseOptions::krylov_tolerance)
       .def_readwrite("krylov_max_iterations", &sp::ResponseOptions::krylov_max_iterations)
       .def_readwrite("sternheimer_tolerance", &sp::ResponseOptions::sternheimer_tolerance)
+      .def_readwrite("relaxed_inner_tolerance", &sp::ResponseOptions::relaxed_inner_tolerance)
       .def_readwrite("degeneracy_tolerance", &sp::ResponseOptions::degeneracy_tolerance);
 
   py::class_<sp::SystemSpec>(m, "System", "One system as an input file describes it (read with `load`).")

@@ -1,6 +1,7 @@
 #include "stillpoint/response/response.hpp"
 
 #include <Eigen/SparseCholesky>
+#include <algorithm>
 #include <cmath>
 #include <limits>
 #include <sstream>
@@ -199,8 +200,9 @@ Eigen::VectorXd Response::chi0_sum_over_states(const Eigen::VectorXd& dv) const 
   return out;
 }
 
-Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv) const {
+Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv, double tolerance) const {
   const Impl& I = *impl_;
+  const double tol = tolerance < 0.0 ? I.opt.sternheimer_tolerance : tolerance;
   Eigen::VectorXd out = Eigen::VectorXd::Zero(I.ns * I.nu);
   for (const ChannelData& d : I.ch) {
     if (!d.precond) throw std::logic_error("Sternheimer preconditioner missing");
@@ -231,7 +233,7 @@ Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv) const {
       // computed states span dv c_i (x^2 times the lowest state of a harmonic trap lies in the
       // span of its levels 0 and 2), the projection is rounding noise that no CG can reduce.
       const double bnorm = dvci.norm();
-      if (!(rhs.norm() > I.opt.sternheimer_tolerance * bnorm)) continue;
+      if (!(rhs.norm() > tol * bnorm)) continue;
       Eigen::VectorXd psi = Eigen::VectorXd::Zero(I.nu), r = rhs;
       const BandLuFactor* near = d.near.size() > static_cast<std::size_t>(i) && d.near[i].n > 0 ? &d.near[i] : nullptr;
       auto precondition = [&](const Eigen::VectorXd& v) {
@@ -251,7 +253,7 @@ Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv) const {
         const double alpha = rz / p.dot(Ap);
         psi += alpha * p;
         r -= alpha * Ap;
-        if (r.norm() <= I.opt.sternheimer_tolerance * bnorm) {
+        if (r.norm() <= tol * bnorm) {
           conv = true;
           break;
         }
@@ -297,8 +299,19 @@ Eigen::VectorXd Response::eigenvalue_gradient(int channel, int state) const {
 }
 
 Eigen::VectorXd Response::Impl::gmres(const Eigen::VectorXd& b, bool adjoint, const Response& R) const {
-  auto A = [&](const Eigen::VectorXd& x) -> Eigen::VectorXd {
-    return adjoint ? Eigen::VectorXd(x - R.chi0(R.kernel(x))) : Eigen::VectorXd(x - R.kernel(R.chi0(x)));
+  // inner < 0: chi0 at its own tolerance (true residuals); otherwise the Sternheimer solves may
+  // stop at `inner` (sum over states is exact and ignores it).
+  auto A = [&](const Eigen::VectorXd& x, double inner = -1.0) -> Eigen::VectorXd {
+    auto chi = [&](const Eigen::VectorXd& v) { return sos || inner < 0.0 ? R.chi0(v) : R.chi0_sternheimer(v, inner); };
+    return adjoint ? Eigen::VectorXd(x - chi(R.kernel(x))) : Eigen::VectorXd(x - R.kernel(chi(x)));
+  };
+  // Relaxed inexact GMRES (Bouras and Fraysse 2005; Simoncini and Szyld 2003): an error of
+  // size eta in the j-th product perturbs the solution by about eta times the residual
+  // reached by then, so eta may grow like tolerance / residual.
+  auto inner_tolerance = [&](double residual) {
+    if (!opt.relaxed_inner_tolerance) return -1.0;
+    const double t = opt.sternheimer_tolerance;
+    return std::clamp(0.1 * opt.krylov_tolerance / std::max(residual, 1e-300), t, std::max(t, 1e-4));
   };
   const int n = static_cast<int>(b.size());
   const int m = std::min(60, n);
@@ -330,8 +343,9 @@ Eigen::VectorXd Response::Impl::gmres(const Eigen::VectorXd& b, bool adjoint, co
     g(0) = beta;
     std::vector<double> cs(m), sn(m);
     int j = 0;
+    double estimate = true_res;  // the recurrence's relative residual so far
     for (; j < m && total < opt.krylov_max_iterations; ++total) {
-      Eigen::VectorXd w = A(V[j]);
+      Eigen::VectorXd w = A(V[j], inner_tolerance(estimate));
       for (int i = 0; i <= j; ++i) {
         H(i, j) = R.dot(w, V[i]);
         w -= H(i, j) * V[i];
@@ -352,6 +366,7 @@ Eigen::VectorXd Response::Impl::gmres(const Eigen::VectorXd& b, bool adjoint, co
       g(j) = cs[j] * g(j);
       ++j;
       const double res = std::abs(g(j)) / bnorm;
+      estimate = res;
       char buf[96];
       std::snprintf(buf, sizeof buf, "  GMRES iteration %3d: relative residual %.3e", total + 1, res);
       history.emplace_back(buf);

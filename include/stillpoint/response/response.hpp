@@ -22,8 +22,13 @@ struct ResponseOptions {
   };
   Chi0Method chi0 = Chi0Method::Automatic;
   int sum_over_states_below = 200;
-  /// Relative residual at which the Sternheimer CG solves stop.
+  /// Relative residual at which the Sternheimer CG solves stop. Inside GMRES the solves may
+  /// stop earlier as the outer residual falls (relaxed inexact Krylov: products that enter
+  /// the Krylov space late need less accuracy), never looser than 1e-4; the true residual of
+  /// every restart and of the answer is computed at this tolerance.
   double sternheimer_tolerance = 1e-13;
+  /// Off: every Sternheimer solve at sternheimer_tolerance.
+  bool relaxed_inner_tolerance = true;
   int sternheimer_max_iterations = 2000;
   /// Relative residual at which GMRES on (I - K chi0) stops.
   double krylov_tolerance = 1e-12;
@@ -52,7 +57,8 @@ class Response {
 
   Eigen::VectorXd chi0(const Eigen::VectorXd& dv) const;
   Eigen::VectorXd chi0_sum_over_states(const Eigen::VectorXd& dv) const;
-  Eigen::VectorXd chi0_sternheimer(const Eigen::VectorXd& dv) const;
+  /// `tolerance` < 0: sternheimer_tolerance.
+  Eigen::VectorXd chi0_sternheimer(const Eigen::VectorXd& dv, double tolerance = -1.0) const;
   Eigen::VectorXd kernel(const Eigen::VectorXd& dn) const;
   /// d eps / d v of state `state` of channel `channel` as a potential-space gradient:
   /// d eps = <result, dv>.
