@@ -379,3 +379,8 @@ TEST(SoftExchange1d, EdgeCasesAndBatch) {
   sp::soft_exchange_1d_unpolarized(n.size(), n.data(), 1.3, e2.data(), nullptr, nullptr);
   EXPECT_EQ(e2, e);
 }
+
+// The table compiled in at build time is the one the table builder computes on this machine,
+// bit for bit (the other tests of this file then check that table against libxc and the
+// direct evaluation).
+TEST(SoftExchange1d, CompiledTableIsTheBuiltOne) { EXPECT_TRUE(sp::detail::soft_exchange_1d_table_is_current()); }

@@ -2,6 +2,8 @@
 
 #include <array>
 #include <cmath>
+#include <cstdio>
+#include <cstring>
 #include <limits>
 #include <numbers>
 #include <sstream>
@@ -234,9 +236,51 @@ Table build_table() {
   return t;
 }
 
-const Table& table() {
-  static const Table t = build_table();
+#ifdef STILLPOINT_SOFT_EXCHANGE_TABLE
+// The table as the build computed it (soft_exchange_1d_table.inc, written by running this file
+// as a program at build time): the long-double Bessel functions took about 10 ms, a quarter of
+// a 1D helium run, once per process.
+Table compiled_table() {
+  static constexpr double kData[] = {
+#include "soft_exchange_1d_table.inc"
+  };
+  static_assert(sizeof(kData) / sizeof(double) == 3 + 8 * static_cast<std::size_t>(kIntervals));
+  Table t;
+  t.log_rmin = kData[0];
+  t.inv_dlog = kData[1];
+  t.first_exp = static_cast<int>(kData[2]);
+  t.intervals.resize(kIntervals);
+  for (int j = 0; j < kIntervals; ++j) {
+    const double* d = kData + 3 + 8 * static_cast<std::size_t>(j);
+    t.intervals[j].r0 = d[0];
+    t.intervals[j].inv_h = d[1];
+    for (int i = 0; i < 6; ++i) t.intervals[j].c[i] = d[2 + i];
+  }
   return t;
+}
+#endif
+
+const Table& table() {
+#ifdef STILLPOINT_SOFT_EXCHANGE_TABLE
+  static const Table t = compiled_table();
+#else
+  static const Table t = build_table();
+#endif
+  return t;
+}
+
+bool same_table(const Table& a, const Table& b) {
+  auto same = [](double x, double y) { return std::memcmp(&x, &y, sizeof x) == 0; };
+  if (!same(a.log_rmin, b.log_rmin) || !same(a.inv_dlog, b.inv_dlog) || a.first_exp != b.first_exp ||
+      a.intervals.size() != b.intervals.size())
+    return false;
+  for (std::size_t j = 0; j < a.intervals.size(); ++j) {
+    const Interval &x = a.intervals[j], &y = b.intervals[j];
+    if (!same(x.r0, y.r0) || !same(x.inv_h, y.inv_h)) return false;
+    for (int i = 0; i < 6; ++i)
+      if (!same(x.c[i], y.c[i])) return false;
+  }
+  return true;
 }
 
 inline SoftExchange1dShape shape(const Table& tab, double R) {
@@ -377,5 +421,23 @@ SoftExchange1dShape soft_exchange_1d_shape_reference(double R_in) {
   return {static_cast<double>(R * (I + g1)), static_cast<double>(I), static_cast<double>(K0)};
 }
 
+
+bool soft_exchange_1d_table_is_current() { return same_table(table(), build_table()); }
+
 }  // namespace detail
 }  // namespace stillpoint
+
+#ifdef STILLPOINT_SOFT_EXCHANGE_TABLE_GENERATOR
+// Build step: prints the table as C++ initializers, in hexadecimal so every bit survives.
+int main() {
+  const auto t = stillpoint::build_table();
+  std::printf("// Generated at build time from src/xc/soft_exchange_1d.cpp; do not edit.\n");
+  std::printf("%a, %a, %d,\n", t.log_rmin, t.inv_dlog, t.first_exp);
+  for (const auto& iv : t.intervals) {
+    std::printf("%a, %a", iv.r0, iv.inv_h);
+    for (double c : iv.c) std::printf(", %a", c);
+    std::printf(",\n");
+  }
+  return 0;
+}
+#endif

@@ -74,6 +74,10 @@ inline constexpr int kSoftExchange1dTableIntervals = 1000;
 /// The evaluation used by the public functions (series / table / asymptote); zeros for R <= 0.
 SoftExchange1dShape soft_exchange_1d_shape(double R);
 
+/// True when the table compiled into the library equals the one this machine builds now,
+/// bit for bit (always true when the library builds it at run time).
+bool soft_exchange_1d_table_is_current();
+
 /// Slow direct evaluation (long double series, quadrature and Bessel functions), independent of
 /// the table's accumulation path; for validation only. R > 0.
 SoftExchange1dShape soft_exchange_1d_shape_reference(double R);
