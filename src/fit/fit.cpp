@@ -779,7 +779,7 @@ void prepare_fit(FitSpec& spec) {
     if (!(spec.info[i].scale > 0)) throw InputError("parameter '" + p.name + "': its scale must be positive");
     if (p.kind == ParameterRef::Kind::GridPotential) {
       const SystemSpec& s = spec.systems[p.system < 0 ? 0 : p.system];
-      const Mesh m = s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z);
+      const Mesh m = mesh_of(s);
       spec.info[i].node_x = m.x()(p.index);
       spec.info[i].node_weight = m.w()(p.index);
     }

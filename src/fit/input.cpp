@@ -62,7 +62,6 @@ void check_field_table(const std::string& file, const toml::table& block, const 
   }
 }
 
-Mesh mesh_of(const SystemSpec& s) { return s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z); }
 
 FitWorkflow parse_root(toml::table& root, const std::string& file) {
   FitWorkflow wf;

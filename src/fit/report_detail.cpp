@@ -37,7 +37,6 @@ std::string csv_field(const std::string& s) {
   return o + "\"";
 }
 
-Mesh mesh_of(const SystemSpec& s) { return s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z); }
 
 XcSettings settings_of(const SystemSpec& s) {
   XcSettings xs;

@@ -22,7 +22,6 @@ inline std::string cell(double v) { return detail::csv_number(v); }
 
 std::string toml_string(const std::string& s);
 std::string csv_field(const std::string& s);
-Mesh mesh_of(const SystemSpec& s);
 XcSettings settings_of(const SystemSpec& s);
 const char* kind_name(LossTerm::Kind k);
 const char* parameter_kind(ParameterRef::Kind k);

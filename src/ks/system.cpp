@@ -9,4 +9,8 @@ double SystemSpec::electron_count() const {
   return z - charge;
 }
 
+Mesh mesh_of(const SystemSpec& s) {
+  return s.geometry == Geometry::Radial ? Mesh::radial(s.grid, s.atom.Z) : Mesh::line(s.grid);
+}
+
 }  // namespace stillpoint

@@ -75,7 +75,7 @@ double& field_ref(SystemSpec& s, const ParameterRef& p) {
     }
     case K::GridPotential: {
       if (s.nodal_potential.empty()) {
-        const Mesh m = s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z);
+        const Mesh m = mesh_of(s);
         s.nodal_potential.assign(m.num_nodes(), 0.0);
       }
       if (p.index < 0 || p.index >= static_cast<int>(s.nodal_potential.size()))
@@ -508,11 +508,7 @@ std::shared_ptr<const GradientProblem::Cache> GradientProblem::solve(const Eigen
       c->meshes[s] = &c->problems[s]->mesh();
       continue;
     }
-    if (!meshes_[s]) {
-      const SystemSpec& sp = systems_[s];
-      meshes_[s] = std::make_shared<const Mesh>(sp.geometry == Geometry::Radial ? Mesh::radial(sp.grid, sp.atom.Z)
-                                                                                 : Mesh::line(sp.grid));
-    }
+    if (!meshes_[s]) meshes_[s] = std::make_shared<const Mesh>(mesh_of(systems_[s]));
     c->meshes[s] = meshes_[s].get();
   }
   for (int s : active_) warm_[s] = c->solutions[s];
@@ -800,6 +796,11 @@ Eigen::VectorXd GradientProblem::finite_difference_gradient(const Eigen::VectorX
   // own (serial) solves, all from the same base warm starts, so every value equals the serial one.
   const Communicator* all = options_.communicator;
   options_.communicator = nullptr;
+  struct Restore {
+    const Communicator*& slot;
+    const Communicator* value;
+    ~Restore() { slot = value; }
+  } restore{options_.communicator, all};
   int done = 0;
   std::vector<double> cost(static_cast<std::size_t>(theta.size()), 1.0);
   const auto errors = detail::distributed_for(
@@ -818,7 +819,6 @@ Eigen::VectorXd GradientProblem::finite_difference_gradient(const Eigen::VectorX
         detail::ByteReader r = detail::message_reader(bytes);
         g(p) = r.f64();
       });
-  options_.communicator = all;
   warm_ = base;
   cache_.reset();
   for (const auto& e : errors)

@@ -155,7 +155,7 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
     if (base.kind == ParameterRef::Kind::GridPotential) {
       if (base.system < 0 && g.base.systems.size() > 1)
         throw InputError(location(file, *t, path + ".system"), "grid_potential needs system = \"name\"");
-      const Mesh mesh = ref.geometry == Geometry::Line ? Mesh::line(ref.grid) : Mesh::radial(ref.grid, ref.atom.Z);
+      const Mesh mesh = mesh_of(ref);
       const std::string prefix = string_key(file, *t, path, "name", "v");
       for (int k = 1; k < mesh.num_nodes() - 1; ++k) {
         ParameterRef p = base;
@@ -200,7 +200,6 @@ void read_parameters(detail::GradParsed& parsed, const std::string& file, const 
   parameter_values(g.base.systems, g.parameters);
 }
 
-Mesh mesh_of(const SystemSpec& s) { return s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z); }
 
 std::vector<std::string> split_fields(const std::string& line) {
   std::vector<std::string> out;
@@ -361,7 +360,7 @@ void read_loss(detail::GradParsed& parsed, const std::string& file, const toml::
         const toml::array* ra = rn->as_array();
         if (!ra || ra->size() != 2) throw InputError(location(file, *rn, path + ".region"), "expected [x_min, x_max] in bohr");
         const double lo = (*ra)[0].value<double>().value_or(0.0), hi = (*ra)[1].value<double>().value_or(0.0);
-        const Mesh mesh = s.geometry == Geometry::Line ? Mesh::line(s.grid) : Mesh::radial(s.grid, s.atom.Z);
+        const Mesh mesh = mesh_of(s);
         L.region.resize(mesh.num_nodes());
         for (int k = 0; k < mesh.num_nodes(); ++k) L.region[k] = (mesh.x()(k) >= lo && mesh.x()(k) <= hi) ? 1.0 : 0.0;
       }

@@ -26,8 +26,8 @@ struct ChannelData {
   // Sum over states: every eigenpair of the channel.
   Eigen::VectorXd eps_all;
   Eigen::MatrixXd c_all;
-  // Sternheimer: H~, a positive-definite preconditioner (H~ - sigma)^{-1} below the spectrum,
-  // and per occupied state the banded LU of H~ - (eps_i - delta_i) (empty where unusable).
+  // Sternheimer: H~, per occupied state the banded LU of H~ - (eps_i - delta_i) (empty where
+  // unusable), and for those states a positive-definite (H~ - sigma)^{-1} below the spectrum.
   SpMat H;
   std::unique_ptr<Ldlt> precond;
   std::vector<BandLuFactor> near;
@@ -90,14 +90,6 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
       // Use the converged SCF states for the occupied ones so chi0 is consistent with the
       // reported solution; the dense pairs agree with them to solver precision.
     } else {
-      double sigma = d.eps(0) - std::max(0.05, 0.05 * std::abs(d.eps(0)));
-      for (int tries = 0; tries < 60; ++tries) {
-        SpMat A = d.H;
-        for (int i = 0; i < I.nu; ++i) A.coeffRef(i, i) -= sigma;
-        d.precond = std::make_unique<Ldlt>(A);
-        if (d.precond->info() == Eigen::Success && (d.precond->vectorD().array() > 0).all()) break;
-        sigma -= std::max(1.0, std::abs(sigma));
-      }
       // Just below eps_i, (H~ - mu)^{-1} on the complement of the computed states has
       // eigenvalues 1/(lambda_j - eps_i + delta): against H~ - eps_i there the preconditioned
       // spectrum lies in [g / (g + delta), 1] (g: the gap to the first state not computed), so
@@ -119,6 +111,20 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
           for (SpMat::InnerIterator it(d.H, j); it; ++it)
             f.at(static_cast<int>(it.row()), j) = it.value() - (it.row() == j ? d.eps(i) - delta : 0.0);
         if (f.factor() != 0) f = BandLuFactor{};
+      }
+      // States without one (near-degenerate, or an exactly singular factor) use a shift below
+      // the whole spectrum, where H~ - sigma is positive definite.
+      bool all_near = true;
+      for (int i = 0; i < k; ++i) all_near = all_near && (d.occ[i] == 0.0 || d.near[i].n > 0);
+      if (!all_near) {
+        double sigma = d.eps(0) - std::max(0.05, 0.05 * std::abs(d.eps(0)));
+        for (int tries = 0; tries < 60; ++tries) {
+          SpMat A = d.H;
+          for (int i = 0; i < I.nu; ++i) A.coeffRef(i, i) -= sigma;
+          d.precond = std::make_unique<Ldlt>(A);
+          if (d.precond->info() == Eigen::Success && (d.precond->vectorD().array() > 0).all()) break;
+          sigma -= std::max(1.0, std::abs(sigma));
+        }
       }
     }
     I.ch.push_back(std::move(d));
@@ -205,7 +211,6 @@ Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv, double tol
   const double tol = tolerance < 0.0 ? I.opt.sternheimer_tolerance : tolerance;
   Eigen::VectorXd out = Eigen::VectorXd::Zero(I.ns * I.nu);
   for (const ChannelData& d : I.ch) {
-    if (!d.precond) throw std::logic_error("Sternheimer preconditioner missing");
     const auto dvs = dv.segment(d.spin * I.nu, I.nu);
     const int k = static_cast<int>(d.eps.size());
     auto project = [&](Eigen::VectorXd& x) { x -= d.c * (d.c.transpose() * x); };
@@ -235,7 +240,8 @@ Eigen::VectorXd Response::chi0_sternheimer(const Eigen::VectorXd& dv, double tol
       const double bnorm = dvci.norm();
       if (!(rhs.norm() > tol * bnorm)) continue;
       Eigen::VectorXd psi = Eigen::VectorXd::Zero(I.nu), r = rhs;
-      const BandLuFactor* near = d.near.size() > static_cast<std::size_t>(i) && d.near[i].n > 0 ? &d.near[i] : nullptr;
+      const BandLuFactor* near = d.near[i].n > 0 ? &d.near[i] : nullptr;
+      if (!near && !d.precond) throw std::logic_error("Sternheimer preconditioner missing");
       auto precondition = [&](const Eigen::VectorXd& v) {
         if (!near) return Eigen::VectorXd(d.precond->solve(v));
         Eigen::VectorXd out = v;

@@ -74,4 +74,7 @@ struct SystemSpec {
   double electron_count() const;
 };
 
+/// The mesh the system is discretized on (what KsProblem builds), without the rest of the set-up.
+Mesh mesh_of(const SystemSpec& s);
+
 }  // namespace stillpoint
