@@ -5,15 +5,18 @@
 // scaling-correct exchange, Janak's theorem, grid convergence) and by published energies.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
 #include <fstream>
 #include <iterator>
+#include <tuple>
 
 #include "stillpoint/ks/atom_config.hpp"
 #include "stillpoint/common/errors.hpp"
 #include "stillpoint/check/functional_survey.hpp"
 #include "stillpoint/ks/grid_presets.hpp"
 #include "stillpoint/invert/inversion.hpp"
+#include "stillpoint/ks/report.hpp"
 #include "stillpoint/ks/scf.hpp"
 
 namespace sp = stillpoint;
@@ -286,4 +289,63 @@ TEST(Blyp, InversionRecoversTheBlypPotential) {
   }
   EXPECT_LT(worst, 1e-5) << "at r = " << at << " bohr";
   for (std::size_t i = 0; i < sol.levels.size(); ++i) EXPECT_NEAR(r.levels[i].energy, sol.levels[i].energy, 1e-6);
+}
+
+// Functionals whose tail potentials diverge (G96, AK13, CAP: exchange growing without bound as
+// the reduced gradient does) or whose libxc form loses its digits at low density (Q2D
+// correlation near n = 1e-8) are switched off in the far tail. The switch rises over three
+// decades of density (fewer where it would reach 1e-5), a few bohr of a tail: over one decade it was a step on the mesh, and
+// Li's diffuse 2s made these SCFs stall (the regression this guards against).
+TEST(Functionals, TailSwitchedFunctionalsConvergeOnDiffuseAtoms) {
+  for (const auto& [xc, Z, pol] : std::vector<std::tuple<std::vector<std::string>, int, bool>>{
+           {{"gga_x_g96"}, 3, false},
+           {{"gga_x_g96"}, 11, false},
+           {{"gga_x_ak13"}, 3, false},
+           {{"gga_x_cap"}, 3, true},
+           {{"lda_x", "gga_c_q2d"}, 1, true},
+           {{"lda_x", "gga_c_q2d"}, 3, true}}) {
+    const sp::KsProblem P(atom(Z, xc, pol));
+    const double cut = P.xc().term(P.xc().size() - 1).tail_cut();
+    const double on = P.xc().term(P.xc().size() - 1).tail_on();
+    EXPECT_GT(cut, 0.0) << xc.back();
+    // Three decades, fewer where that would reach above 1e-5 bohr^-3 (Q2D), never under one.
+    EXPECT_NEAR(std::log10(on / cut), std::clamp(std::log10(1e-5 / cut), 1.0, 3.0), 1e-12) << xc.back();
+    EXPECT_LE(on, 1e-5 * (1.0 + 1e-12)) << xc.back() << ": the functional is untouched above 1e-5 bohr^-3";
+    try {
+      const sp::KsSolution s = sp::solve_scf(P);
+      EXPECT_EQ(s.residual_floor, 0.0) << xc.back() << " Z = " << Z;
+    } catch (const std::exception& e) {
+      ADD_FAILURE() << xc.back() << " Z = " << Z << (pol ? " polarized" : "") << ": " << e.what();
+    }
+  }
+  // Q2D's 2D limit is rough below about 1e-8 (second differences of the tail potential that
+  // alternate in sign and exceed a fifth of it), so its cut sits above that.
+  const sp::KsProblem q(atom(1, {"lda_x", "gga_c_q2d"}, true));
+  EXPECT_GT(q.xc().term(1).tail_cut(), 1e-8);
+}
+
+// BEEF-vdW exchange (a Legendre series of high order in the reduced gradient) turns the
+// rounding-level density differences between two eigensolver paths into potential changes of
+// about 2e-9 Ha on Ar, above the default tolerance of 1e-9: the SCF measures that floor, stops
+// there and says so. The energy is variational, so it agrees with a looser SCF far below the
+// floor's size, and with Ne at default settings nothing changes (no floor).
+TEST(Functionals, RoundingFloorIsMeasuredAndReported) {
+  const sp::KsProblem ar(atom(18, {"gga_x_beefvdw"}, false));
+  const sp::KsSolution s = sp::solve_scf(ar);
+  EXPECT_GT(s.residual_floor, 1e-10);
+  EXPECT_LT(s.residual_floor, 1e-8);
+  EXPECT_LT(s.history.back().residual, 3.0 * s.residual_floor + 1e-9);
+  sp::ScfOptions loose;
+  loose.potential_tolerance = 1e-7;
+  loose.energy_tolerance = 1e-9;
+  loose.eigenvalue_tolerance = 1e-7;
+  const sp::KsSolution l = sp::solve_scf(ar, loose);
+  EXPECT_NEAR(s.energy.total, l.energy.total, 1e-9);
+  EXPECT_NE(sp::format_solution(ar, s).find("rounding floor"), std::string::npos);
+
+  const sp::KsProblem ne(atom(10, {"gga_x_pbe", "gga_c_pbe"}, false));
+  const sp::KsSolution n = sp::solve_scf(ne);
+  EXPECT_EQ(n.residual_floor, 0.0);
+  EXPECT_LT(n.history.back().residual, 1e-9);
+  EXPECT_EQ(sp::format_solution(ne, n).find("rounding floor"), std::string::npos);
 }

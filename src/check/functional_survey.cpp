@@ -102,10 +102,12 @@ SurveyRow survey_functional(const LibxcEntry& entry, const std::vector<SurveySys
       const KsProblem& problem = *built;
       const XcFunctional& f = problem.xc();
       row.tail_cut = f.term(f.size() - 1).tail_cut();
+      row.tail_on = f.term(f.size() - 1).tail_on();
       const KsSolution sol = solve_scf(problem);
       o.converged = true;
       o.iterations = sol.iterations;
       o.energy = sol.energy.total;
+      o.residual_floor = sol.residual_floor;
     } catch (const std::exception& e) {
       o.error = e.what();
     }
@@ -203,7 +205,10 @@ std::string survey_markdown(const std::vector<SurveyRow>& rows, const std::strin
     for (const auto& o : r.outcomes) {
       if (o.converged) {
         char b[96];
-        std::snprintf(b, sizeof b, "%.6f Ha (%d)", o.energy, o.iterations);
+        if (o.residual_floor > 0.0)
+          std::snprintf(b, sizeof b, "%.6f Ha (%d, at its rounding floor %.0e Ha)", o.energy, o.iterations, o.residual_floor);
+        else
+          std::snprintf(b, sizeof b, "%.6f Ha (%d)", o.energy, o.iterations);
         results += (results.empty() ? "" : ", ") + o.system + " " + b;
       } else if (o.refused) {
         refused_on += (refused_on.empty() ? "" : ", ") + o.system;
@@ -221,7 +226,8 @@ std::string survey_markdown(const std::vector<SurveyRow>& rows, const std::strin
     if (!refused_on.empty()) status += "; refused on " + esc(refused_on) + ": " + esc(refused_why);
     if (r.tail_cut > 0) {
       char b[96];
-      std::snprintf(b, sizeof b, " (switched off below n = %.0e, where its tail is unusable)", r.tail_cut);
+      std::snprintf(b, sizeof b, " (switched off below n = %.0e, where its tail is unusable; fully on above %.0e)",
+                    r.tail_cut, r.tail_on);
       status += b;
     }
     s << status << " | " << esc(results) << " |\n";

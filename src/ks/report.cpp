@@ -60,6 +60,9 @@ std::string format_solution(const KsProblem& P, const KsSolution& S) {
   o << "  grid        " << P.spec().grid_name << ": " << P.mesh().describe() << "\n";
   o << "  SCF         converged in " << S.iterations << " iterations (potential residual "
     << fmt("%.2e", S.history.empty() ? 0.0 : S.history.back().residual) << " Ha)\n";
+  if (S.residual_floor > 0.0)
+    o << "              at the rounding floor of the Kohn-Sham map (" << fmt("%.2e", S.residual_floor)
+      << " Ha, measured): the functional turns rounding-level density changes into larger potential changes\n";
   o << "  energies (hartree)\n";
   auto line = [&](const char* name, double v) { o << "    " << name << fmt("%20.10f", v) << "\n"; };
   line("total                ", S.energy.total);
@@ -137,6 +140,8 @@ std::string solution_json(const KsProblem& P, const KsSolution& S) {
   for (const ScfStep& st : S.history)
     hist.push_back({{"iteration", st.iteration}, {"energy", st.energy}, {"residual", st.residual}});
   j["scf"] = {{"converged", true}, {"iterations", S.iterations}, {"history", hist}};
+  // 0: the tolerances were met as asked; otherwise the measured rounding floor the SCF stopped at.
+  j["scf"]["residual_floor"] = S.residual_floor;
   return j.dump(2) + "\n";
 }
 

@@ -169,6 +169,14 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
   // 2s down with some GGAs) is reported with settled = false instead of failing the SCF.
   constexpr int kUnoccupiedGrace = 50;
   int rest_converged_since = 0;
+  // Rounding floor (see KsSolution::residual_floor): measured once the residual has stalled
+  // near the tolerance, as the difference between two evaluations of the map at the same input
+  // that differ only in the eigensolver's path (warm start against cold start).
+  constexpr double kFloorFactor = 3.0;
+  constexpr double kFloorWindow = 1e3;  // only within this factor of the tolerance
+  constexpr int kFloorStall = 10;       // iterations without a new best residual
+  double floor_v = 0.0, floor_e = 0.0, floor_eps = 0.0;
+  bool floor_measured = false;
   auto history_lines = [&]() {
     std::vector<std::string> lines{"SCF residual history:"};
     for (const auto& h : history) lines.push_back(format_step(h));
@@ -284,12 +292,35 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
       restart(it, what.str());
       continue;
     }
-    const bool rest_converged = step.residual < opt.potential_tolerance &&
-                                std::abs(step.energy - prev_energy) < opt.energy_tolerance &&
-                                occupied_change < opt.eigenvalue_tolerance;
+    if (!floor_measured && best_iteration > 0 && it - best_iteration >= kFloorStall &&
+        step.residual >= opt.potential_tolerance && best_residual < kFloorWindow * opt.potential_tolerance) {
+      floor_measured = true;
+      std::vector<EigenWarmStart> cold;
+      try {
+        const MapEvaluation c = evaluate_ks_map(P, v_in, cold);
+        const Eigen::VectorXd d = stack(c.v_out) - stack(m.v_out);
+        floor_v = std::sqrt(dens_metric.dot(d.cwiseProduct(d)));
+        floor_e = std::abs(c.energy.total - m.energy.total);
+        for (std::size_t ch = 0; ch < m.states.size(); ++ch)
+          if (P.spin_electrons(P.channels()[ch].spin) > 0.0)
+            floor_eps = std::max(floor_eps, (c.states[ch].energies - m.states[ch].energies).cwiseAbs().maxCoeff());
+      } catch (const NumericalError&) {
+        floor_v = floor_e = floor_eps = 0.0;  // no floor known: the tolerances stand
+      }
+      if (!std::isfinite(floor_v) || !std::isfinite(floor_e) || !std::isfinite(floor_eps)) floor_v = floor_e = floor_eps = 0.0;
+      if (opt.verbose)
+        std::fprintf(stderr, "  iteration %d: residual stalled; rounding floor of the map %.2e Ha (energy %.1e Ha)\n", it,
+                     floor_v, floor_e);
+    }
+    const double tol_v = std::max(opt.potential_tolerance, kFloorFactor * floor_v);
+    const double tol_e = std::max(opt.energy_tolerance, kFloorFactor * floor_e);
+    const double tol_eps = std::max(opt.eigenvalue_tolerance, kFloorFactor * floor_eps);
+    const double energy_change = std::abs(step.energy - prev_energy);
+    const bool rest_converged = step.residual < tol_v && energy_change < tol_e &&
+                                occupied_change < tol_eps;
     if (!rest_converged) rest_converged_since = 0;
     else if (rest_converged_since == 0) rest_converged_since = it;
-    const bool converged = rest_converged && (step.eigenvalue_change < opt.eigenvalue_tolerance ||
+    const bool converged = rest_converged && (step.eigenvalue_change < tol_eps ||
                                               it - rest_converged_since >= kUnoccupiedGrace);
     prev_eps.clear();
     for (const auto& st : m.states) prev_eps.push_back(st.energies);
@@ -306,10 +337,13 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
       sol.history = std::move(history);
       sol.warm = warm;
       sol.iterations = it;
+      const bool at_floor = step.residual >= opt.potential_tolerance || energy_change >= opt.energy_tolerance ||
+                            occupied_change >= opt.eigenvalue_tolerance;
+      sol.residual_floor = at_floor ? floor_v : 0.0;
       sol.levels = labelled_levels(P, sol.states);
       for (Level& lv : sol.levels)
         if (lv.index < level_change[lv.channel].size())
-          lv.settled = level_change[lv.channel](lv.index) < opt.eigenvalue_tolerance;
+          lv.settled = level_change[lv.channel](lv.index) < tol_eps;
       return sol;
     }
     // Pulay / DIIS extrapolation with a restart safeguard when the residual blows up.

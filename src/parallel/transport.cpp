@@ -73,6 +73,7 @@ void write_solution(ByteWriter& w, const KsSolution& s) {
   }
   write_warm_starts(w, s.warm);
   w.i64(s.iterations);
+  w.f64(s.residual_floor);
 }
 
 KsSolution read_solution(ByteReader& r) {
@@ -109,6 +110,7 @@ KsSolution read_solution(ByteReader& r) {
   }
   s.warm = read_warm_starts(r);
   s.iterations = static_cast<int>(r.i64());
+  s.residual_floor = r.f64();
   return s;
 }
 

@@ -83,6 +83,8 @@ std::vector<std::string> all_libxc_names() {
 // A tail switch (see LibxcTerm::probe_tail) above this density would change total energies
 // noticeably; such functionals are refused instead.
 constexpr double kLargestTailCut = 1e-6;
+// Density (bohr^-3) below which the tail switch may act when it is widened past one decade.
+constexpr double kSwitchTop = 1e-5;
 
 // Largest |d e / d n_s| or |d e / d sigma| taken from libxc's fully polarized limit for a spin
 // that is absent at a point (hartree, hartree bohr^5); beyond it the limit is not physical.
@@ -156,6 +158,7 @@ class LibxcTerm final : public XcTerm {
   /// Density below which this term is switched off (0: never). Only functionals whose potential
   /// diverges in an exponentially decaying tail get one (see probe_tail).
   double tail_cut() const override { return tail_cut_; }
+  double tail_on() const override { return tail_cut_ > 0.0 ? tail_cut_ * std::pow(10.0, switch_decades()) : 0.0; }
   std::string open_shell_refusal() const override { return open_shell_refusal_; }
 
   std::string name() const override { return name_; }
@@ -244,6 +247,7 @@ class LibxcTerm final : public XcTerm {
   double probe_tail() const {
     constexpr double kTailPotential = 0.5;  // hartree; physical tail potentials are far smaller
     constexpr double kTailNoise = 1e-3;     // hartree, second difference per step of 0.25 in ln n
+    constexpr double kRelativeNoiseBelow = 1e-7;  // bohr^-3
     const double lo = std::max(threshold_, 1e-30);
     std::vector<double> dens;
     for (double ln = std::log(1e-3); ln > std::log(lo) + 1e-9; ln -= 0.25) dens.push_back(std::exp(ln));
@@ -276,6 +280,14 @@ class LibxcTerm final : public XcTerm {
         // Only far below any density that matters: real potentials curve at higher densities.
         const double rough =
             j > 0 && j + 1 < m && dens[j] < 1e-12 ? std::abs(v[j + 1] - 2.0 * v[j] + v[j - 1]) : 0.0;
+        // Below densities that matter, a curve whose second differences alternate in sign three
+        // times running, each larger than a fifth of the potential (Q2D's 2D limit loses its
+        // digits near n = 1e-8), is rounding noise relative to its own size: the SCF stalls there.
+        bool jagged = dens[j] < kRelativeNoiseBelow && j >= 2 && j + 2 < m;
+        for (std::size_t q = j - 1; jagged && q <= j + 1; ++q) {
+          const double a0 = v[q + 1] - 2.0 * v[q] + v[q - 1], a1 = q + 2 < m ? v[q + 2] - 2.0 * v[q + 1] + v[q] : 0.0;
+          jagged = a0 * a1 < 0.0 && std::abs(a0) > 0.2 * std::abs(v[q]) + 1e-9;
+        }
         bool finite = std::isfinite(v[j]) && std::isfinite(b.zk[j]) && std::isfinite(b.v2rho2[(polarized ? 3 : 1) * j]);
         if (gga())
           finite = finite && std::isfinite(b.v2sigma2[(polarized ? 6 : 1) * j]) &&
@@ -283,7 +295,7 @@ class LibxcTerm final : public XcTerm {
         // The energy per particle too (the switch below adds e dS/dn to the potential), with
         // more room: it may grow slowly where the potential stays moderate (G96).
         if (!finite || !(std::abs(v[j]) <= kTailPotential) || !(std::abs(b.zk[j]) <= 10.0 * kTailPotential) ||
-            !(rough <= kTailNoise + 0.05 * std::abs(v[j]))) {
+            !(rough <= kTailNoise + 0.05 * std::abs(v[j])) || jagged) {
           bad = std::max(bad, dens[j]);
           return;
         }
@@ -394,16 +406,24 @@ class LibxcTerm final : public XcTerm {
     return {};
   }
 
-  // e -> S(n) e with S = 0 below the tail cut, 1 above ten times it, and the quintic smoothstep
-  // in log10(n / cut) between: every derivative follows, so the potential and the kernel stay
-  // the exact derivatives of the discrete energy.
+  // Decades of density over which the tail switch rises: three, so that it spans a few bohr of
+  // an exponential tail and several mesh nodes (over one decade, about one bohr and two or three
+  // nodes of a tail element, S(n(r)) was a step the mesh could not resolve: the switched GGA
+  // potential turned jagged and G96, AK13 and CAP stalled the SCF of Li and Na). The top of the
+  // switch stays below kSwitchTop, where the functional is left untouched; never under one decade.
+  double switch_decades() const { return std::clamp(std::log10(kSwitchTop / tail_cut_), 1.0, 3.0); }
+
+  // e -> S(n) e with S = 0 below the tail cut, 1 above switch_decades() decades higher, and the
+  // quintic smoothstep in log10(n / cut) between: every derivative follows, so the potential and
+  // the kernel stay the exact derivatives of the discrete energy.
   void switch_off_tail(const XcPointData& in, int order, XcDerivatives& t) const {
     const int ns = in.nspin;
-    const double ln10 = std::log(10.0);
+    const double K = switch_decades();
+    const double ln10 = std::log(10.0) * K;
     for (std::size_t i = 0; i < in.np; ++i) {
       double n = 0.0;
       for (int s = 0; s < ns; ++s) n += in.rho[ns * i + s];
-      const double x = n > 0.0 ? std::log10(n / tail_cut_) : -1.0;
+      const double x = n > 0.0 ? std::log10(n / tail_cut_) / K : -1.0;
       if (x >= 1.0) continue;
       double S = 0.0, dS = 0.0, d2S = 0.0;  // d/dn and d2/dn2
       if (x > 0.0) {

@@ -28,6 +28,7 @@ struct SurveyOutcome {
   bool converged = false;
   int iterations = 0;
   double energy = 0.0;  ///< total energy, hartree
+  double residual_floor = 0.0;  ///< KsSolution::residual_floor (0: the tolerances were met as asked)
   /// Refused for this system before the SCF (for example an open shell with a functional whose
   /// minority-spin potential diverges); `error` then holds the reason.
   bool refused = false;
@@ -41,6 +42,7 @@ struct SurveyRow {
   /// lda_x_1d_soft on the line) plus a correlation-only functional.
   std::vector<std::string> xc;
   double tail_cut = 0.0;  ///< XcTerm::tail_cut of the functional (0: none)
+  double tail_on = 0.0;   ///< XcTerm::tail_on: the switch is complete above this density
   std::string refusal;  ///< why it is refused for every system of the set (empty: it was solved)
   std::vector<SurveyOutcome> outcomes;
   bool all_converged() const;

@@ -70,6 +70,12 @@ struct KsSolution {
   std::vector<ScfStep> history;
   std::vector<EigenWarmStart> warm;  ///< eigensolver state per channel, for warm starts
   int iterations = 0;
+  /// 0 when the tolerances were met as asked. Otherwise the measured rounding floor of the
+  /// Kohn–Sham map (hartree, the residual metric): some functionals (BEEF-vdW's Legendre
+  /// series, FT97) turn rounding-level changes of the density into potential changes above
+  /// potential_tolerance, so no iterate can get closer. The SCF then accepts an iterate whose
+  /// residual, energy and eigenvalue changes are within kFloorFactor of the floors it measured.
+  double residual_floor = 0.0;
 
   Eigen::VectorXd total_density() const;
 };

@@ -60,6 +60,8 @@ class XcTerm {
   /// Total density (bohr^-3 or bohr^-1) below which the term is smoothly switched off because
   /// its potential diverges in exponentially decaying tails; 0 when it is never switched off.
   virtual double tail_cut() const { return 0.0; }
+  /// Density above which the tail switch leaves the term untouched (0 when there is no cut).
+  virtual double tail_on() const { return 0.0; }
   /// Non-empty when the term cannot serve a spin-polarized system with electrons of both spins
   /// in unequal numbers, with the reason (a minority-spin potential that diverges as the spin
   /// polarization approaches 1).
