@@ -178,52 +178,71 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
     }
     return false;
   };
-  // The set is the lowest `count` when H - low is positive definite and exactly `count`
-  // eigenvalues lie below just above the highest.
+  // Lower band of H for the inertia counts (band L D L^T, O(n kd^2) each), built once per solve.
+  const int kd = I.bandwidth, nn = static_cast<int>(n);
+  std::vector<double> band(static_cast<std::size_t>(kd + 1) * nn, 0.0);
+  for (int j = 0; j < H.outerSize(); ++j)
+    for (SpMat::InnerIterator it(H, j); it; ++it) {
+      const int i = static_cast<int>(it.row());
+      if (i >= j && i - j <= kd) band[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = it.value();
+    }
+  auto below = [&](double x) { return band_count_below(band, nn, kd, x); };
+  // The set is the lowest `count` when H - low is positive definite (no eigenvalue below low)
+  // and exactly `count` eigenvalues lie below just above the highest. Two band counts: the
+  // sparse LDL^T and the Cholesky they replace cost several times more for the same proof.
   auto proven_lowest = [&](const Eigenpairs& out) {
     for (int i = 1; i < count; ++i)
       if (out.values(i) < out.values(i - 1) - 1e-12 * (1.0 + std::abs(out.values(i)))) return false;
     const double span = 1e-9 * (1.0 + std::abs(out.values(count - 1)));
     const double low = out.values(0) - std::max(span, 1e-6 * (1.0 + std::abs(out.values(0))));
-    return I.chol.factor(H, low) && count_below(out.values(count - 1) + span) == count;
+    return below(low) == 0 && below(out.values(count - 1) + span) == count;
   };
-  auto cold_by_bisection = [&](double lo, Eigenpairs& out) {
+  // Pairs a failed warm refinement leaves behind: each (value, residual norm) has an
+  // eigenvalue within the residual of the value (symmetric H), which two inertia counts place.
+  struct Hint {
+    double value, residual;
+    Eigen::VectorXd vector;
+  };
+  auto cold_by_bisection = [&](double lo, Eigenpairs& out, const std::vector<Hint>& hints) {
     const int cnt = count;
-    const int kd = I.bandwidth, nn = static_cast<int>(n);
-    std::vector<double> band(static_cast<std::size_t>(kd + 1) * nn, 0.0);
-    for (int j = 0; j < H.outerSize(); ++j)
-      for (SpMat::InnerIterator it(H, j); it; ++it) {
-        const int i = static_cast<int>(it.row());
-        if (i >= j && i - j <= kd) band[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = it.value();
-      }
-    auto below = [&](double x) { return band_count_below(band, nn, kd, x); };
     // The previous solve's bound, when inertia confirms it, saves the bisection the distance
     // from the proven bound (min diagonal, thousands of hartree below near a nucleus).
     if (std::isfinite(warm.lower_bound) && warm.lower_bound > lo && below(warm.lower_bound) == 0) lo = warm.lower_bound;
-    double hi = lo + std::max(1.0, 1e-3 * std::abs(lo));
-    for (int guard = 0; below(hi) < cnt; ++guard) {
+    // Brackets a[j] < lambda_j <= b[j] with the counts at their ends; b unknown (infinite) until
+    // a count at or above cnt is seen.
+    const double inf = std::numeric_limits<double>::infinity();
+    std::vector<double> a(cnt, lo), b(cnt, inf);
+    std::vector<int> ca(cnt, 0), cb(cnt, cnt + 1);
+    auto probe = [&](double x) {
+      const int c = below(x);
+      for (int j = 0; j < cnt; ++j) {
+        if (c > j) {
+          if (x < b[j]) b[j] = x, cb[j] = c;
+        } else if (x > a[j]) {
+          a[j] = x, ca[j] = c;
+        }
+      }
+    };
+    for (const Hint& h : hints) {
+      const double slack = h.residual + 1e-9 * (1.0 + std::abs(h.value));
+      if (h.value - slack > a[0]) probe(h.value - slack);
+      if (h.value + slack > a[0] && h.value + slack < b[cnt - 1]) probe(h.value + slack);
+    }
+    double step = std::max(1.0, 1e-3 * std::abs(lo));
+    for (int guard = 0; !std::isfinite(b[cnt - 1]); ++guard) {
       if (guard > 80) return false;
-      hi = lo + 2.0 * (hi - lo);
+      probe(a[cnt - 1] + step);
+      step *= 2.0;
     }
     // Bisect until each bracket holds exactly its own eigenvalue and is narrow (1e-4 relative):
     // inverse iteration from its middle then gains four digits or more per step, and a result
     // inside the bracket can only be that eigenvalue.
-    std::vector<double> a(cnt, lo), b(cnt, hi);
-    std::vector<int> ca(cnt, 0), cb(cnt, below(hi));
     for (int k = 0; k < cnt; ++k) {
       for (int steps = 0;
            ca[k] != k || cb[k] != k + 1 || b[k] - a[k] > 1e-4 * (1.0 + std::max(std::abs(a[k]), std::abs(b[k])));
            ++steps) {
         if (steps > 200) return false;
-        const double mid = 0.5 * (a[k] + b[k]);
-        const int c = below(mid);
-        for (int j = k; j < cnt; ++j) {
-          if (c > j) {
-            if (mid < b[j]) b[j] = mid, cb[j] = c;
-          } else if (mid > a[j]) {
-            a[j] = mid, ca[j] = c;
-          }
-        }
+        probe(0.5 * (a[k] + b[k]));
       }
     }
     BandLu lu;
@@ -236,6 +255,9 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
     for (int k = 0; k < cnt; ++k) {
       Eigen::VectorXd x(n);
       for (Eigen::Index q = 0; q < n; ++q) x(q) = u(rng);
+      // A hint inside the bracket is that state's vector, nearly converged: a better start than noise.
+      for (const Hint& h : hints)
+        if (h.value > a[k] && h.value <= b[k]) x = h.vector;
       double rho = 0.0;
       const double mu = 0.5 * (a[k] + b[k]) + 1e-13 * (1.0 + std::abs(a[k]));
       // One step past the residual test: a vector from a fresh start carries no history, and
@@ -253,6 +275,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
 
   // Warm path: refine the previous eigenpairs by shifted inverse iteration, then prove by
   // inertia that they are the lowest `count`.
+  std::vector<Hint> hints;
   if (warm.previous.vectors.cols() == count && warm.previous.vectors.rows() == n) {
     BandLu lu;
     lu.n = static_cast<int>(n);
@@ -267,13 +290,16 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
       ok = refine(lu, warm.previous.values(i), x, out, i, rho);
       out.values(i) = rho;
       out.vectors.col(i) = x;
+      const double res = (H * x - rho * x).norm();
+      if (std::isfinite(res) && std::isfinite(rho)) hints.push_back({rho, res, x});
     }
     if (ok && proven_lowest(out)) {
       warm.lower_bound = out.values(0) - 0.1 * std::abs(out.values(0)) - 0.05;
       warm.previous = out;
       return out;
     }
-    // Fall through to the cold path: a state crossed or was lost.
+    // A state crossed or was lost (early SCF iterations move levels by many hartree, and new
+    // ones come in from below): the bisection below starts from what the refinement did find.
   }
 
   // Cold path: bisection on Sylvester inertia (band L D L^T, O(n kd^2) per count) brackets
@@ -281,7 +307,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   // bracket refines it and its vector, and the warm path's inertia proof certifies the set.
   // Shift-invert Lanczos below stays the fallback. (Lanczos from one shift below a spectrum that
   // spans thousands of hartree needed thousands of restarts for xenon's 5 s levels.)
-  if (Eigenpairs ep; cold_by_bisection(proven, ep)) {
+  if (Eigenpairs ep; cold_by_bisection(proven, ep, hints)) {
     warm.lower_bound = ep.values(0) - 0.1 * std::abs(ep.values(0)) - 0.05;
     warm.previous = ep;
     return ep;
@@ -333,10 +359,10 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   // Inertia check just above the highest state returned: more than `count` eigenvalues below
   // it means Lanczos skipped a state.
   const double top = out.values(count - 1);
-  const int below = count_below(top + 1e-9 * (1.0 + std::abs(top)));
-  if (below > count) {
+  const int n_below = count_below(top + 1e-9 * (1.0 + std::abs(top)));
+  if (n_below > count) {
     std::ostringstream msg;
-    msg << "eigensolver returned " << count << " states but " << below << " eigenvalues lie below " << top
+    msg << "eigensolver returned " << count << " states but " << n_below << " eigenvalues lie below " << top
         << " hartree (a state was missed)";
     throw NumericalError(msg.str());
   }
