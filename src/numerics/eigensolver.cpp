@@ -78,6 +78,10 @@ struct LowestEigensolver::Impl {
   mutable BandCholesky chol;
   mutable Ldlt ldlt;
   mutable bool analyzed = false;
+  // Band storage reused by every solve: fresh buffers of this size cost page faults each time
+  // (a few percent of a hydrogen SCF).
+  mutable std::vector<double> band;
+  mutable BandLuFactor unshifted, lu;
 };
 
 LowestEigensolver::LowestEigensolver(Eigen::SparseMatrix<double> T, EigensolverOptions options)
@@ -110,7 +114,7 @@ namespace {
 // without its per-column BLAS calls).
 struct BandLu {
   int n = 0, kd = 0;
-  BandLuFactor f;
+  BandLuFactor& f;  // storage kept by the solver between solves
   // H in the factor's storage, filled once per solve: each factorization then starts from a
   // copy instead of walking the sparse matrix (the walk cost about as much as the elimination).
   const BandLuFactor* unshifted = nullptr;
@@ -218,14 +222,15 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   };
   // Lower band of H for the inertia counts (band L D L^T, O(n kd^2) each), built once per solve.
   const int kd = I.bandwidth, nn = static_cast<int>(n);
-  std::vector<double> band(static_cast<std::size_t>(kd + 1) * nn, 0.0);
+  std::vector<double>& band = I.band;
+  band.assign(static_cast<std::size_t>(kd + 1) * nn, 0.0);
   for (int j = 0; j < H.outerSize(); ++j)
     for (SpMat::InnerIterator it(H, j); it; ++it) {
       const int i = static_cast<int>(it.row());
       if (i >= j && i - j <= kd) band[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = it.value();
     }
   auto below = [&](double x) { return band_count_below(band, nn, kd, x); };
-  BandLuFactor unshifted;
+  BandLuFactor& unshifted = I.unshifted;
   unshifted.reset(nn, kd, kd);
   for (int j = 0; j < H.outerSize(); ++j)
     for (SpMat::InnerIterator it(H, j); it; ++it)
@@ -288,7 +293,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
         probe(0.5 * (a[k] + b[k]));
       }
     }
-    BandLu lu;
+    BandLu lu{0, 0, I.lu};
     lu.n = nn;
     lu.kd = kd;
     lu.unshifted = &unshifted;
@@ -321,7 +326,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   // inertia that they are the lowest `count`.
   std::vector<Hint> hints;
   if (warm.previous.vectors.cols() == count && warm.previous.vectors.rows() == n) {
-    BandLu lu;
+    BandLu lu{0, 0, I.lu};
     lu.n = static_cast<int>(n);
     lu.kd = I.bandwidth;
     lu.unshifted = &unshifted;
