@@ -102,3 +102,42 @@ TEST(BandLu, CholeskySolveAgreesWithLapack) {
       EXPECT_LE((A * x - b).norm(), 1e-9 * b.norm() * A.norm()) << "n = " << n;
     }
 }
+
+// Sylvester inertia of band_count_below against the eigenvalues of a dense solver, on full
+// random bands and on matrices made of overlapping dense element blocks (the spectral-element
+// structure, where the count skips the zeros left of each row's first nonzero).
+TEST(BandLu, InertiaCountAgreesWithEigenvalues) {
+  for (int kd : {1, 4, 9}) {
+    for (bool blocks : {false, true}) {
+      const int ne = 12, n = blocks ? ne * kd - 1 : 70;
+      std::mt19937 rng(100 + kd + (blocks ? 1 : 0));
+      std::uniform_real_distribution<double> u(-1.0, 1.0);
+      Eigen::MatrixXd A = Eigen::MatrixXd::Zero(n, n);
+      if (blocks) {
+        for (int e = 0; e < ne; ++e)
+          for (int a = 0; a <= kd; ++a)
+            for (int b = 0; b <= a; ++b) {
+              const int i = e * kd + a - 1, j = e * kd + b - 1;  // the first node removed, as by a boundary condition
+              if (i < 0 || j < 0 || i >= n || j >= n) continue;
+              const double v = u(rng);
+              A(i, j) += v;
+              if (i != j) A(j, i) += v;
+            }
+      } else {
+        A = band_matrix(n, kd, kd, 7u + kd, false);
+        A = 0.5 * (A + A.transpose()).eval();
+      }
+      std::vector<double> lower(static_cast<std::size_t>(kd + 1) * n, 0.0);
+      for (int j = 0; j < n; ++j)
+        for (int i = j; i <= std::min(n - 1, j + kd); ++i) lower[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = A(i, j);
+      const Eigen::VectorXd ev = Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd>(A).eigenvalues();
+      for (int k = 0; k + 1 < n; k += 3) {
+        // Midway between neighbours: far from every eigenvalue compared with rounding.
+        const double x = 0.5 * (ev(k) + ev(k + 1));
+        EXPECT_EQ(stillpoint::band_count_below(lower, n, kd, x), k + 1) << "kd = " << kd << ", blocks = " << blocks;
+      }
+      EXPECT_EQ(stillpoint::band_count_below(lower, n, kd, ev(0) - 1.0), 0);
+      EXPECT_EQ(stillpoint::band_count_below(lower, n, kd, ev(n - 1) + 1.0), n);
+    }
+  }
+}

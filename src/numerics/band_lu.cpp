@@ -69,32 +69,42 @@ void BandLuFactor::solve(double* b) const {
 
 int band_count_below(const std::vector<double>& lower, int n, int kd, double x) {
   const int L = kd + 1;
-  // L (unit lower, in band storage) and D, column by column; the buffers are reused between
-  // calls of one thread, since bisection calls this tens of times per solve.
-  thread_local std::vector<double> d, l;  // l[(i - j) + j * L] = L(i, j)
+  auto A = [&](int i, int k) { return lower[static_cast<std::size_t>(i - k) + static_cast<std::size_t>(k) * L]; };
+  // Row-oriented (envelope) L D L^T: without pivoting the fill of row i stays right of its first
+  // nonzero, so only the envelope is computed. Spectral-element matrices are overlapping dense
+  // element blocks inside the band, so the envelope holds about a third of the band's work, and
+  // its row dot products are unit-stride. Entries outside it are exact zeros of the band form
+  // too. The buffers are reused between calls of one thread (tens per solve).
+  thread_local std::vector<double> d, inv_d, lr, w;  // lr[i * kd + (k - i + kd)] = L(i, k)
+  thread_local std::vector<int> first;
   d.resize(n);
-  l.resize(static_cast<std::size_t>(L) * n);
+  inv_d.resize(n);
+  first.resize(n);
+  lr.resize(static_cast<std::size_t>(kd) * n + 1);
+  w.resize(kd + 1);
   int negative = 0;
   double scale = 0.0;
-  for (int j = 0; j < n; ++j) scale = std::max(scale, std::abs(lower[static_cast<std::size_t>(j) * L] - x));
+  for (int j = 0; j < n; ++j) scale = std::max(scale, std::abs(A(j, j) - x));
   const double tiny = 1e-300 + 1e-15 * scale;
-  for (int j = 0; j < n; ++j) {
-    const int k0 = std::max(0, j - kd);
-    double dj = lower[static_cast<std::size_t>(j) * L] - x;
-    for (int k = k0; k < j; ++k) {
-      const double ljk = l[(j - k) + static_cast<std::size_t>(k) * L];
-      dj -= ljk * ljk * d[k];
+  for (int i = 0; i < n; ++i) {
+    int fi = std::max(0, i - kd);
+    while (fi < i && A(i, fi) == 0.0) ++fi;
+    first[i] = fi;
+    double* li = &lr[static_cast<std::size_t>(i) * kd] + (kd - i);  // li[k] = L(i, k)
+    double di = A(i, i) - x;
+    for (int k = fi; k < i; ++k) {
+      // w[k - fi] = L(i, k) d_k from the already finished rows k of the envelope.
+      double s = A(i, k);
+      const double* lk = &lr[static_cast<std::size_t>(k) * kd] + (kd - k);
+      for (int m = std::max(fi, first[k]); m < k; ++m) s -= w[m - fi] * lk[m];
+      w[k - fi] = s;
+      li[k] = s * inv_d[k];  // a division here would sit in the dependency chain of every row
+      di -= s * li[k];
     }
-    if (dj == 0.0 || std::abs(dj) < tiny) dj = tiny;  // an eigenvalue at x counts as above it
-    d[j] = dj;
-    if (dj < 0.0) ++negative;
-    const int i1 = std::min(n - 1, j + kd);
-    for (int i = j + 1; i <= i1; ++i) {
-      double a = lower[(i - j) + static_cast<std::size_t>(j) * L];
-      for (int k = std::max(0, i - kd); k < j; ++k)
-        a -= l[(i - k) + static_cast<std::size_t>(k) * L] * l[(j - k) + static_cast<std::size_t>(k) * L] * d[k];
-      l[(i - j) + static_cast<std::size_t>(j) * L] = a / dj;
-    }
+    if (di == 0.0 || std::abs(di) < tiny) di = tiny;  // an eigenvalue at x counts as above it
+    d[i] = di;
+    inv_d[i] = 1.0 / di;
+    if (di < 0.0) ++negative;
   }
   return negative;
 }

@@ -78,6 +78,10 @@ struct LowestEigensolver::Impl {
   mutable BandCholesky chol;
   mutable Ldlt ldlt;
   mutable bool analyzed = false;
+  // Band storage reused by every solve: fresh buffers of this size cost page faults each time
+  // (a few percent of a hydrogen SCF).
+  mutable std::vector<double> band;
+  mutable BandLuFactor unshifted, lu;
 };
 
 LowestEigensolver::LowestEigensolver(Eigen::SparseMatrix<double> T, EigensolverOptions options)
@@ -110,15 +114,27 @@ namespace {
 // without its per-column BLAS calls).
 struct BandLu {
   int n = 0, kd = 0;
-  BandLuFactor f;
+  BandLuFactor& f;  // storage kept by the solver between solves
+  // H in the factor's storage, filled once per solve: each factorization then starts from a
+  // copy instead of walking the sparse matrix (the walk cost about as much as the elimination).
+  const BandLuFactor* unshifted = nullptr;
   void factor(const SpMat& H, double mu) {
-    f.reset(n, kd, kd);
-    for (int j = 0; j < H.outerSize(); ++j)
-      for (SpMat::InnerIterator it(H, j); it; ++it) {
-        const int i = static_cast<int>(it.row());
-        if (std::abs(i - j) > kd) continue;
-        f.at(i, j) = it.value() - (i == j ? mu : 0.0);
-      }
+    if (unshifted) {
+      f.n = unshifted->n;
+      f.kl = unshifted->kl;
+      f.ku = unshifted->ku;
+      f.ab = unshifted->ab;
+      f.ipiv.resize(f.n);
+      for (int j = 0; j < n; ++j) f.at(j, j) -= mu;
+    } else {
+      f.reset(n, kd, kd);
+      for (int j = 0; j < H.outerSize(); ++j)
+        for (SpMat::InnerIterator it(H, j); it; ++it) {
+          const int i = static_cast<int>(it.row());
+          if (std::abs(i - j) > kd) continue;
+          f.at(i, j) = it.value() - (i == j ? mu : 0.0);
+        }
+    }
     f.factor();  // an exactly singular pivot still gives a huge, eigenvector-rich solve
   }
   void solve(Eigen::VectorXd& b) const { f.solve(b.data()); }
@@ -161,8 +177,18 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   // when the residual reaches the rounding floor within four steps.
   auto refine = [&](BandLu& lu, double mu, Eigen::VectorXd& x, const Eigenpairs& out, int i, double& rho,
                     int extra = 0) {
-    for (int it = 0; it < 4 + extra; ++it) {
-      lu.factor(H, mu);
+    // Residual of the start, so the first step's reduction can be judged.
+    double prev_res = std::numeric_limits<double>::infinity();
+    if (const double nx = x.norm(); nx > 0.0) {
+      const Eigen::VectorXd Hx = H * x;
+      prev_res = (Hx - (x.dot(Hx) / (nx * nx)) * x).norm() / nx;
+    }
+    bool factored = false, polished = false;
+    int steps_left = 4 + extra;
+    while (steps_left-- > 0) {
+      const bool reused = factored;
+      if (!factored) lu.factor(H, mu);
+      factored = true;
       lu.solve(x);
       for (int j = 0; j < i; ++j) x -= out.vectors.col(j).dot(x) * out.vectors.col(j);
       x.normalize();
@@ -171,64 +197,106 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
       const double res = (Hx - rho * x).norm();
       if (!std::isfinite(res)) return false;
       if (res <= 1e-11 * (1.0 + std::abs(rho)) + 1e-14 * norm_H) {
+        // A fixed shift converges linearly and stops just under the test, where a Rayleigh step
+        // lands far below it: one more solve with the same factor gives the last digits that
+        // response solves (GMRES to 1e-12) rely on.
+        if (reused && !polished && extra == 0) {
+          polished = true;
+          ++steps_left;
+          continue;
+        }
         if (extra-- <= 0) return true;
       }
-      // Rayleigh-quotient shift, nudged off the exact value so the LU stays regular.
-      mu = rho + 1e-13 * (1.0 + std::abs(rho));
+      // A step that cut the residual a thousandfold had a shift close to the eigenvalue
+      // compared with the gap: the next step with the same factorization gains as much again,
+      // for a triangular solve instead of a new LU (the warm path's usual second step). A
+      // slower step gets the Rayleigh-quotient shift, nudged off the exact value so the LU
+      // stays regular.
+      if (!(res < 1e-3 * prev_res)) {
+        mu = rho + 1e-13 * (1.0 + std::abs(rho));
+        factored = false;
+      }
+      prev_res = res;
     }
     return false;
   };
-  // The set is the lowest `count` when H - low is positive definite and exactly `count`
-  // eigenvalues lie below just above the highest.
+  // Lower band of H for the inertia counts (band L D L^T, O(n kd^2) each), built once per solve.
+  const int kd = I.bandwidth, nn = static_cast<int>(n);
+  std::vector<double>& band = I.band;
+  band.assign(static_cast<std::size_t>(kd + 1) * nn, 0.0);
+  for (int j = 0; j < H.outerSize(); ++j)
+    for (SpMat::InnerIterator it(H, j); it; ++it) {
+      const int i = static_cast<int>(it.row());
+      if (i >= j && i - j <= kd) band[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = it.value();
+    }
+  auto below = [&](double x) { return band_count_below(band, nn, kd, x); };
+  BandLuFactor& unshifted = I.unshifted;
+  unshifted.reset(nn, kd, kd);
+  for (int j = 0; j < H.outerSize(); ++j)
+    for (SpMat::InnerIterator it(H, j); it; ++it)
+      if (std::abs(static_cast<int>(it.row()) - j) <= kd) unshifted.at(static_cast<int>(it.row()), j) = it.value();
+  // The set is the lowest `count` when H - low is positive definite (no eigenvalue below low)
+  // and exactly `count` eigenvalues lie below just above the highest. Two band counts: the
+  // sparse LDL^T and the Cholesky they replace cost several times more for the same proof.
   auto proven_lowest = [&](const Eigenpairs& out) {
     for (int i = 1; i < count; ++i)
       if (out.values(i) < out.values(i - 1) - 1e-12 * (1.0 + std::abs(out.values(i)))) return false;
     const double span = 1e-9 * (1.0 + std::abs(out.values(count - 1)));
     const double low = out.values(0) - std::max(span, 1e-6 * (1.0 + std::abs(out.values(0))));
-    return I.chol.factor(H, low) && count_below(out.values(count - 1) + span) == count;
+    return below(low) == 0 && below(out.values(count - 1) + span) == count;
   };
-  auto cold_by_bisection = [&](double lo, Eigenpairs& out) {
+  // Pairs a failed warm refinement leaves behind: each (value, residual norm) has an
+  // eigenvalue within the residual of the value (symmetric H), which two inertia counts place.
+  struct Hint {
+    double value, residual;
+    Eigen::VectorXd vector;
+  };
+  auto cold_by_bisection = [&](double lo, Eigenpairs& out, const std::vector<Hint>& hints) {
     const int cnt = count;
-    const int kd = I.bandwidth, nn = static_cast<int>(n);
-    std::vector<double> band(static_cast<std::size_t>(kd + 1) * nn, 0.0);
-    for (int j = 0; j < H.outerSize(); ++j)
-      for (SpMat::InnerIterator it(H, j); it; ++it) {
-        const int i = static_cast<int>(it.row());
-        if (i >= j && i - j <= kd) band[(i - j) + static_cast<std::size_t>(j) * (kd + 1)] = it.value();
-      }
-    auto below = [&](double x) { return band_count_below(band, nn, kd, x); };
     // The previous solve's bound, when inertia confirms it, saves the bisection the distance
     // from the proven bound (min diagonal, thousands of hartree below near a nucleus).
     if (std::isfinite(warm.lower_bound) && warm.lower_bound > lo && below(warm.lower_bound) == 0) lo = warm.lower_bound;
-    double hi = lo + std::max(1.0, 1e-3 * std::abs(lo));
-    for (int guard = 0; below(hi) < cnt; ++guard) {
+    // Brackets a[j] < lambda_j <= b[j] with the counts at their ends; b unknown (infinite) until
+    // a count at or above cnt is seen.
+    const double inf = std::numeric_limits<double>::infinity();
+    std::vector<double> a(cnt, lo), b(cnt, inf);
+    std::vector<int> ca(cnt, 0), cb(cnt, cnt + 1);
+    auto probe = [&](double x) {
+      const int c = below(x);
+      for (int j = 0; j < cnt; ++j) {
+        if (c > j) {
+          if (x < b[j]) b[j] = x, cb[j] = c;
+        } else if (x > a[j]) {
+          a[j] = x, ca[j] = c;
+        }
+      }
+    };
+    for (const Hint& h : hints) {
+      const double slack = h.residual + 1e-9 * (1.0 + std::abs(h.value));
+      if (h.value - slack > a[0]) probe(h.value - slack);
+      if (h.value + slack > a[0] && h.value + slack < b[cnt - 1]) probe(h.value + slack);
+    }
+    double step = std::max(1.0, 1e-3 * std::abs(lo));
+    for (int guard = 0; !std::isfinite(b[cnt - 1]); ++guard) {
       if (guard > 80) return false;
-      hi = lo + 2.0 * (hi - lo);
+      probe(a[cnt - 1] + step);
+      step *= 2.0;
     }
     // Bisect until each bracket holds exactly its own eigenvalue and is narrow (1e-4 relative):
     // inverse iteration from its middle then gains four digits or more per step, and a result
     // inside the bracket can only be that eigenvalue.
-    std::vector<double> a(cnt, lo), b(cnt, hi);
-    std::vector<int> ca(cnt, 0), cb(cnt, below(hi));
     for (int k = 0; k < cnt; ++k) {
       for (int steps = 0;
            ca[k] != k || cb[k] != k + 1 || b[k] - a[k] > 1e-4 * (1.0 + std::max(std::abs(a[k]), std::abs(b[k])));
            ++steps) {
         if (steps > 200) return false;
-        const double mid = 0.5 * (a[k] + b[k]);
-        const int c = below(mid);
-        for (int j = k; j < cnt; ++j) {
-          if (c > j) {
-            if (mid < b[j]) b[j] = mid, cb[j] = c;
-          } else if (mid > a[j]) {
-            a[j] = mid, ca[j] = c;
-          }
-        }
+        probe(0.5 * (a[k] + b[k]));
       }
     }
-    BandLu lu;
+    BandLu lu{0, 0, I.lu};
     lu.n = nn;
     lu.kd = kd;
+    lu.unshifted = &unshifted;
     out.values.resize(cnt);
     out.vectors.resize(n, cnt);
     std::mt19937 rng(12345);  // no symmetry, so no state is missed by parity; fixed for reproducibility
@@ -236,6 +304,9 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
     for (int k = 0; k < cnt; ++k) {
       Eigen::VectorXd x(n);
       for (Eigen::Index q = 0; q < n; ++q) x(q) = u(rng);
+      // A hint inside the bracket is that state's vector, nearly converged: a better start than noise.
+      for (const Hint& h : hints)
+        if (h.value > a[k] && h.value <= b[k]) x = h.vector;
       double rho = 0.0;
       const double mu = 0.5 * (a[k] + b[k]) + 1e-13 * (1.0 + std::abs(a[k]));
       // One step past the residual test: a vector from a fresh start carries no history, and
@@ -253,10 +324,12 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
 
   // Warm path: refine the previous eigenpairs by shifted inverse iteration, then prove by
   // inertia that they are the lowest `count`.
+  std::vector<Hint> hints;
   if (warm.previous.vectors.cols() == count && warm.previous.vectors.rows() == n) {
-    BandLu lu;
+    BandLu lu{0, 0, I.lu};
     lu.n = static_cast<int>(n);
     lu.kd = I.bandwidth;
+    lu.unshifted = &unshifted;
     Eigenpairs out;
     out.values.resize(count);
     out.vectors.resize(n, count);
@@ -267,13 +340,16 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
       ok = refine(lu, warm.previous.values(i), x, out, i, rho);
       out.values(i) = rho;
       out.vectors.col(i) = x;
+      const double res = (H * x - rho * x).norm();
+      if (std::isfinite(res) && std::isfinite(rho)) hints.push_back({rho, res, x});
     }
     if (ok && proven_lowest(out)) {
       warm.lower_bound = out.values(0) - 0.1 * std::abs(out.values(0)) - 0.05;
       warm.previous = out;
       return out;
     }
-    // Fall through to the cold path: a state crossed or was lost.
+    // A state crossed or was lost (early SCF iterations move levels by many hartree, and new
+    // ones come in from below): the bisection below starts from what the refinement did find.
   }
 
   // Cold path: bisection on Sylvester inertia (band L D L^T, O(n kd^2) per count) brackets
@@ -281,7 +357,7 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   // bracket refines it and its vector, and the warm path's inertia proof certifies the set.
   // Shift-invert Lanczos below stays the fallback. (Lanczos from one shift below a spectrum that
   // spans thousands of hartree needed thousands of restarts for xenon's 5 s levels.)
-  if (Eigenpairs ep; cold_by_bisection(proven, ep)) {
+  if (Eigenpairs ep; cold_by_bisection(proven, ep, hints)) {
     warm.lower_bound = ep.values(0) - 0.1 * std::abs(ep.values(0)) - 0.05;
     warm.previous = ep;
     return ep;
@@ -333,10 +409,10 @@ Eigenpairs LowestEigensolver::solve(const Eigen::VectorXd& diagonal, int count, 
   // Inertia check just above the highest state returned: more than `count` eigenvalues below
   // it means Lanczos skipped a state.
   const double top = out.values(count - 1);
-  const int below = count_below(top + 1e-9 * (1.0 + std::abs(top)));
-  if (below > count) {
+  const int n_below = count_below(top + 1e-9 * (1.0 + std::abs(top)));
+  if (n_below > count) {
     std::ostringstream msg;
-    msg << "eigensolver returned " << count << " states but " << below << " eigenvalues lie below " << top
+    msg << "eigensolver returned " << count << " states but " << n_below << " eigenvalues lie below " << top
         << " hartree (a state was missed)";
     throw NumericalError(msg.str());
   }

@@ -5,8 +5,10 @@
 // changes during an SCF. Sparse path, cold: bisection on Sylvester inertia (band LDL^T counts)
 // brackets each wanted eigenvalue, shifted inverse iteration refines it; shift-invert Lanczos
 // (Spectra) below the spectrum is the fallback. Warm (SCF): inverse iteration from the previous
-// pairs. Every result is proved complete by inertia: H - low positive definite and exactly
-// `count` eigenvalues below just above the highest. Dense path (small grids): LAPACK through
+// pairs; when a level crossed or a new one came in from below (early SCF iterations), the
+// bisection starts from the pairs the warm refinement did find. Every result is proved
+// complete by inertia: H - low positive definite and exactly `count` eigenvalues below just
+// above the highest. Dense path (small grids): LAPACK through
 // Armadillo, the only place the library uses Armadillo.
 #include <Eigen/Dense>
 #include <Eigen/Sparse>
