@@ -316,8 +316,9 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
     const double tol_e = std::max(opt.energy_tolerance, kFloorFactor * floor_e);
     const double tol_eps = std::max(opt.eigenvalue_tolerance, kFloorFactor * floor_eps);
     const double energy_change = std::abs(step.energy - prev_energy);
-    const bool rest_converged = step.residual < tol_v && energy_change < tol_e &&
-                                occupied_change < tol_eps;
+    const bool rest_converged = step.residual < tol_v && energy_change < tol_e && occupied_change < tol_eps;
+    const bool met_as_asked = step.residual < opt.potential_tolerance && energy_change < opt.energy_tolerance &&
+                              occupied_change < opt.eigenvalue_tolerance;
     if (!rest_converged) rest_converged_since = 0;
     else if (rest_converged_since == 0) rest_converged_since = it;
     const bool converged = rest_converged && (step.eigenvalue_change < tol_eps ||
@@ -337,9 +338,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
       sol.history = std::move(history);
       sol.warm = warm;
       sol.iterations = it;
-      const bool at_floor = step.residual >= opt.potential_tolerance || energy_change >= opt.energy_tolerance ||
-                            occupied_change >= opt.eigenvalue_tolerance;
-      sol.residual_floor = at_floor ? floor_v : 0.0;
+      sol.residual_floor = met_as_asked ? 0.0 : floor_v;
       sol.levels = labelled_levels(P, sol.states);
       for (Level& lv : sol.levels)
         if (lv.index < level_change[lv.channel].size())

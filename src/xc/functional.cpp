@@ -136,6 +136,7 @@ class LibxcTerm final : public XcTerm {
       if (is1d) configure_1d(h->f, settings.softening);
     }
     tail_cut_ = probe_tail();
+    if (tail_cut_ > 0.0) switch_decades_ = std::clamp(std::log10(kSwitchTop / tail_cut_), 1.0, 3.0);
     minority_floor_ = probe_minority_floor();
     open_shell_refusal_ = probe_minority_divergence();
     if (const double n = probe_collapse(is1d); n > 0.0) {
@@ -158,7 +159,7 @@ class LibxcTerm final : public XcTerm {
   /// Density below which this term is switched off (0: never). Only functionals whose potential
   /// diverges in an exponentially decaying tail get one (see probe_tail).
   double tail_cut() const override { return tail_cut_; }
-  double tail_on() const override { return tail_cut_ > 0.0 ? tail_cut_ * std::pow(10.0, switch_decades()) : 0.0; }
+  double tail_on() const override { return tail_cut_ > 0.0 ? tail_cut_ * std::pow(10.0, switch_decades_) : 0.0; }
   std::string open_shell_refusal() const override { return open_shell_refusal_; }
 
   std::string name() const override { return name_; }
@@ -275,19 +276,18 @@ class LibxcTerm final : public XcTerm {
         const std::size_t j0 = j == 0 ? 0 : j - 1, j1 = j + 1 == m ? j : j + 1;
         v[j] = b.vrho[vs * j] - a * a * (flux[j1] - flux[j0]) / (std::log(dens[j1]) - std::log(dens[j0]));
       }
+      std::vector<double> d2(m, 0.0);  // second differences (0 at the ends)
+      for (std::size_t j = 1; j + 1 < m; ++j) d2[j] = v[j + 1] - 2.0 * v[j] + v[j - 1];
       for (std::size_t j = 0; j < m; ++j) {
         // Rounding noise (cancellation in some libxc forms at huge r_s) shows as a rough curve.
         // Only far below any density that matters: real potentials curve at higher densities.
-        const double rough =
-            j > 0 && j + 1 < m && dens[j] < 1e-12 ? std::abs(v[j + 1] - 2.0 * v[j] + v[j - 1]) : 0.0;
+        const double rough = dens[j] < 1e-12 ? std::abs(d2[j]) : 0.0;
         // Below densities that matter, a curve whose second differences alternate in sign three
         // times running, each larger than a fifth of the potential (Q2D's 2D limit loses its
         // digits near n = 1e-8), is rounding noise relative to its own size: the SCF stalls there.
         bool jagged = dens[j] < kRelativeNoiseBelow && j >= 2 && j + 2 < m;
-        for (std::size_t q = j - 1; jagged && q <= j + 1; ++q) {
-          const double a0 = v[q + 1] - 2.0 * v[q] + v[q - 1], a1 = q + 2 < m ? v[q + 2] - 2.0 * v[q + 1] + v[q] : 0.0;
-          jagged = a0 * a1 < 0.0 && std::abs(a0) > 0.2 * std::abs(v[q]) + 1e-9;
-        }
+        for (std::size_t q = j - 1; jagged && q <= j + 1; ++q)
+          jagged = d2[q] * d2[q + 1] < 0.0 && std::abs(d2[q]) > 0.2 * std::abs(v[q]) + 1e-9;
         bool finite = std::isfinite(v[j]) && std::isfinite(b.zk[j]) && std::isfinite(b.v2rho2[(polarized ? 3 : 1) * j]);
         if (gga())
           finite = finite && std::isfinite(b.v2sigma2[(polarized ? 6 : 1) * j]) &&
@@ -406,20 +406,13 @@ class LibxcTerm final : public XcTerm {
     return {};
   }
 
-  // Decades of density over which the tail switch rises: three, so that it spans a few bohr of
-  // an exponential tail and several mesh nodes (over one decade, about one bohr and two or three
-  // nodes of a tail element, S(n(r)) was a step the mesh could not resolve: the switched GGA
-  // potential turned jagged and G96, AK13 and CAP stalled the SCF of Li and Na). The top of the
-  // switch stays below kSwitchTop, where the functional is left untouched; never under one decade.
-  double switch_decades() const { return std::clamp(std::log10(kSwitchTop / tail_cut_), 1.0, 3.0); }
-
-  // e -> S(n) e with S = 0 below the tail cut, 1 above switch_decades() decades higher, and the
+  // e -> S(n) e with S = 0 below the tail cut, 1 above switch_decades_ decades higher, and the
   // quintic smoothstep in log10(n / cut) between: every derivative follows, so the potential and
   // the kernel stay the exact derivatives of the discrete energy.
   void switch_off_tail(const XcPointData& in, int order, XcDerivatives& t) const {
     const int ns = in.nspin;
-    const double K = switch_decades();
-    const double ln10 = std::log(10.0) * K;
+    const double K = switch_decades_;
+    const double ln10 = std::log(10.0) * K;  // dx/dn = 1 / (n ln10)
     for (std::size_t i = 0; i < in.np; ++i) {
       double n = 0.0;
       for (int s = 0; s < ns; ++s) n += in.rho[ns * i + s];
@@ -627,6 +620,12 @@ class LibxcTerm final : public XcTerm {
   int family_ = 0, kind_ = 0;
   double threshold_ = 0;
   double tail_cut_ = 0;
+  // Decades of density over which the tail switch rises: three, so that it spans a few bohr of
+  // an exponential tail and several mesh nodes (over one decade, about one bohr and two or three
+  // nodes of a tail element, S(n(r)) was a step the mesh could not resolve: the switched GGA
+  // potential turned jagged and G96, AK13 and CAP stalled the SCF of Li and Na). The top of the
+  // switch stays below kSwitchTop, where the functional is left untouched; never under one decade.
+  double switch_decades_ = 1.0;
   std::string open_shell_refusal_;
   double minority_floor_ = 0;  // polarized: a spin density (bohr^-3) below this is taken as zero
   std::string name_;
