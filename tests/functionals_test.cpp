@@ -11,6 +11,8 @@
 #include <iterator>
 #include <tuple>
 
+#include <xc.h>
+
 #include "stillpoint/ks/atom_config.hpp"
 #include "stillpoint/common/errors.hpp"
 #include "stillpoint/check/functional_survey.hpp"
@@ -348,4 +350,60 @@ TEST(Functionals, RoundingFloorIsMeasuredAndReported) {
   EXPECT_EQ(n.residual_floor, 0.0);
   EXPECT_LT(n.history.back().residual, 1e-9);
   EXPECT_EQ(sp::format_solution(ne, n).find("rounding floor"), std::string::npos);
+}
+
+// The ripple bound (ripple_stability in xc/on_mesh.hpp): the smallest admissible curvature of
+// e in the density gradient is -1/(4n), the von Weizsaecker stiffness of the kinetic energy at
+// short wavelengths (the large-q limit of the Lindhard function; textbook result). BMK
+// correlation breaks it in the 2s shell of Li (4 n e_gg about -1.4 near r = 2.5 bohr): its SCF
+// stalls whatever the mixing or grid, and is reported as unstable, not as bad settings.
+TEST(Functionals, RippleUnstableFunctionalIsNamedAsSuch) {
+  const sp::KsProblem li(atom(3, {"lda_x", "gga_c_bmk"}, false));
+  try {
+    (void)sp::solve_scf(li);
+    ADD_FAILURE() << "BMK correlation on Li converged";
+  } catch (const sp::UnstableFunctionalError& e) {
+    const sp::RippleStability& r = e.stability();
+    EXPECT_LT(r.worst, -1.0);
+    EXPECT_GT(r.x, 1.5);
+    EXPECT_LT(r.x, 4.0);
+    EXPECT_GT(r.unstable_points, 3);
+    EXPECT_NE(std::string(e.what()).find("choose another functional"), std::string::npos) << e.what();
+    EXPECT_FALSE(e.details().empty());  // the residual history
+    // The same number straight from libxc (a general-purpose library) at that point: lda_x has
+    // no gradient term, so 4 n (2 e_sigma + 4 sigma e_sigma_sigma) of BMK alone.
+    xc_func_type f;
+    ASSERT_EQ(xc_func_init(&f, xc_functional_get_number("gga_c_bmk"), XC_UNPOLARIZED), 0);
+    double rho = r.density, sigma = r.gradient * r.gradient, e0, vr, vs, v2rr, v2rs, v2ss;
+    xc_gga_exc_vxc_fxc(&f, 1, &rho, &sigma, &e0, &vr, &vs, &v2rr, &v2rs, &v2ss);
+    xc_func_end(&f);
+    EXPECT_NEAR(r.worst, 4.0 * rho * (2.0 * vs + 4.0 * sigma * v2ss), 1e-9 * std::abs(r.worst));
+  }
+  // Converged PBE on Li keeps the bound everywhere; an LDA has no gradient term at all.
+  const sp::KsProblem pbe(atom(3, {"gga_x_pbe", "gga_c_pbe"}, false));
+  const sp::KsSolution s = sp::solve_scf(pbe);
+  EXPECT_GT(sp::ripple_stability(pbe.mesh(), pbe.xc(), s.density, pbe.density_threshold()).worst, -0.5);
+  const sp::KsProblem lda(atom(3, {"lda_x", "lda_c_pw"}, false));
+  EXPECT_EQ(sp::ripple_stability(lda.mesh(), lda.xc(), s.density, lda.density_threshold()).worst, 0.0);
+  // The survey counts it as unstable, an acceptable outcome, with the location.
+  const sp::SurveyRow row = sp::survey_functional(entry("gga_c_bmk"), {{"Li", atom(3, {}, false)}});
+  ASSERT_EQ(row.outcomes.size(), 1u);
+  EXPECT_TRUE(row.outcomes[0].unstable);
+  EXPECT_TRUE(row.outcomes[0].acceptable());
+  EXPECT_NE(sp::survey_markdown({row}, "atoms").find("*unstable* on Li"), std::string::npos);
+}
+
+// NCAP's ripple curvature grows like the logarithm of 1/n in slowly decaying tails and breaks
+// the bound below 1e-10 bohr^-3, where SCF iterates of Kr pass: that tail is switched off.
+TEST(Functionals, RippleUnstableTailsAreSwitchedOff) {
+  const sp::KsProblem kr(atom(36, {"gga_x_ncap"}, false));
+  const double cut = kr.xc().term(0).tail_cut();
+  EXPECT_GT(cut, 1e-11);
+  EXPECT_LT(cut, 1e-8);
+  try {
+    const sp::KsSolution s = sp::solve_scf(kr);
+    EXPECT_LT(s.history.back().residual, 1e-9 + 3.0 * s.residual_floor);
+  } catch (const std::exception& e) {
+    ADD_FAILURE() << "NCAP on Kr: " << e.what();
+  }
 }

@@ -26,7 +26,7 @@ int run_functionals(const FunctionalsCommandOptions& o) {
   const auto systems = sp::survey_systems(o.survey);
   sp::SurveyOptions opt;
   opt.threads = o.threads;
-  int failed = 0;
+  int failed = 0, unstable = 0;
   opt.progress = [&](const sp::SurveyRow& r) {
     if (!r.refusal.empty()) {
       if (!o.quiet) std::cerr << "  " << r.entry.name << ": refused\n";
@@ -36,6 +36,9 @@ int run_functionals(const FunctionalsCommandOptions& o) {
       if (!x.acceptable()) {
         ++failed;
         std::cerr << "  " << r.entry.name << " on " << x.system << ": FAILED: " << x.error << "\n";
+      } else if (x.unstable) {
+        ++unstable;
+        if (!o.quiet) std::cerr << "  " << r.entry.name << " on " << x.system << ": unstable: " << x.error << "\n";
       }
     if (!o.quiet && r.all_converged())
       std::cerr << "  " << r.entry.name << ": converges on " << r.outcomes.size() << " systems"
@@ -43,9 +46,14 @@ int run_functionals(const FunctionalsCommandOptions& o) {
   };
   const auto rows = sp::survey_libxc(systems, o.only, opt);
   int solved = 0, refused = 0, bad = 0;
-  for (const auto& r : rows) (r.refusal.empty() ? (r.all_converged() ? solved : bad) : refused)++;
-  std::cout << "survey '" << o.survey << "' (" << systems.size() << " systems): " << solved << " functionals converge, "
-            << refused << " refused, " << bad << " fail (" << failed << " failed solves)\n";
+  int shaky = 0;
+  for (const auto& r : rows) {
+    (r.refusal.empty() ? (r.all_converged() ? solved : bad) : refused)++;
+    if (r.refusal.empty() && r.all_converged() && r.any_unstable()) ++shaky;
+  }
+  std::cout << "survey '" << o.survey << "' (" << systems.size() << " systems): " << solved << " functionals converge (" << shaky << " of them unstable on some systems), "
+            << refused << " refused, " << bad << " fail (" << failed << " failed solves; " << unstable
+            << " solves unstable)\n";
   if (!o.markdown.empty()) sp::write_file_atomically(o.markdown, sp::survey_markdown(rows, o.survey));
   return bad == 0 ? 0 : 3;
 }

@@ -2,6 +2,7 @@
 
 #include <cmath>
 #include <cstdio>
+#include <exception>
 #include <sstream>
 
 #include "stillpoint/common/errors.hpp"
@@ -111,6 +112,36 @@ class ScfDiverged : public NumericalError {
   using NumericalError::NumericalError;
 };
 KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSolution* start);
+
+// A failed SCF whose best iterate breaks the ripple bound is reported as what it is, an
+// unstable functional for this system, instead of advice to change settings that cannot help.
+// Returns normally when the bound holds (or the map cannot be evaluated there).
+void throw_if_unstable(const KsProblem& P, const std::vector<Eigen::VectorXd>& best_v,
+                       std::vector<EigenWarmStart> warm, const std::string& failure,
+                       const std::vector<std::string>& lines) {
+  if (!P.xc().needs_gradient()) return;
+  RippleStability r;
+  try {
+    const MapEvaluation m = evaluate_ks_map(P, best_v, warm);
+    r = ripple_stability(P.mesh(), P.xc(), m.density, P.density_threshold());
+  } catch (const std::exception&) {
+    return;
+  }
+  if (r.worst >= -1.0) return;
+  const bool line = P.mesh().geometry() == Geometry::Line;
+  const char* x = line ? "x" : "r";
+  std::ostringstream msg;
+  msg.precision(3);
+  msg << "functional " << xc_list_form(P.xc()) << " has no stable self-consistent solution for this system: "
+      << "at " << x << " = " << r.x << " bohr (n = " << r.density << (line ? " bohr^-1" : " bohr^-3")
+      << ", |n'| = " << r.gradient << ") of the best iterate, short-wavelength density ripples lower its "
+      << "exchange-correlation energy faster than they raise the kinetic energy (4 n d2e/dn'2 = " << r.worst
+      << "; stable down to -1, the von Weizsaecker bound), at " << r.unstable_points
+      << " quadrature points from " << x << " = " << r.from << " to " << r.to
+      << " bohr. No mixing, iteration limit or grid removes this; choose another functional for this system ("
+      << failure << ")";
+  throw UnstableFunctionalError(msg.str(), lines, r);
+}
 }  // namespace
 
 // A GGA whose SCF diverges from the default start gets one more attempt from the converged LDA
@@ -121,8 +152,12 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
 KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution* start) {
   try {
     return solve_scf_from(P, opt, start);
-  } catch (const ScfDiverged& first) {
+  } catch (const NumericalError& e) {
+    // An unstable verdict also gets the retry: it was measured on the first attempt's best
+    // iterate, which a crude start may have pushed into a region the fixed point avoids.
+    if (!dynamic_cast<const ScfDiverged*>(&e) && !dynamic_cast<const UnstableFunctionalError*>(&e)) throw;
     if (start || !P.xc().needs_gradient()) throw;
+    const std::exception_ptr first = std::current_exception();
     SystemSpec lda = P.spec();
     const bool line = lda.geometry == Geometry::Line;
     lda.xc = line ? std::vector<std::string>{"lda_x_1d_soft"} : std::vector<std::string>{"lda_x", "lda_c_pw"};
@@ -134,7 +169,7 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       if (opt.verbose) std::fprintf(stderr, "  SCF diverged; starting again from the converged LDA solution\n");
       return solve_scf_from(P, opt, &base);
     } catch (const std::exception&) {
-      throw first;  // the first attempt's message and history
+      std::rethrow_exception(first);  // the first attempt's message and history
     }
   }
 }
@@ -194,6 +229,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
       msg << "SCF diverged with functional " << xc_list_form(P.xc()) << ": " << what << " at iteration " << it
           << " (first after the best iterate, iteration " << best_iteration << ")";
       if (restarts > 1) msg << ", and " << restarts - 1 << " damped restarts did not help";
+      throw_if_unstable(P, best_v, best_warm, msg.str(), history_lines());
       msg << "; try a smaller mixing or another grid";
       throw ScfDiverged(msg.str(), history_lines());
     }
@@ -396,7 +432,9 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
     msg << "energy change " << de << " Ha > " << opt.energy_tolerance;
   else
     msg << "eigenvalue change " << last.eigenvalue_change << " Ha > " << opt.eigenvalue_tolerance;
-  msg << "); try more iterations, a smaller mixing, looser tolerances or a different grid";
+  msg << ")";
+  throw_if_unstable(P, best_v, best_warm, msg.str(), lines);
+  msg << "; try more iterations, a smaller mixing, looser tolerances or a different grid";
   throw NumericalError(msg.str(), lines);
 }
 }  // namespace

@@ -1,6 +1,7 @@
 #include "stillpoint/xc/on_mesh.hpp"
 
 #include <cmath>
+#include <limits>
 #include <numbers>
 
 namespace stillpoint {
@@ -97,6 +98,41 @@ std::vector<Eigen::VectorXd> assemble_potential(const Mesh& mesh, const PointMap
   return dE;
 }
 
+// Per point, the mixed and pure second derivatives of e(n_s, g_s) in the gradients g_s = (D n_s)_q
+// (ns x ns blocks, row-major), from libxc's derivatives in sigma.
+void gradient_blocks(const XcDerivatives& d, const std::vector<double>& grad, std::size_t i, int ns, double* ng,
+                     double* gg) {
+  if (ns == 1) {
+    // sigma = g^2: e_g = 2 g e_s, e_gg = 2 e_s + 4 g^2 e_ss, e_ng = 2 g e_ns.
+    const double g = grad[i];
+    ng[0] = 2.0 * g * d.v2rhosigma[i];
+    gg[0] = 2.0 * d.vsigma[i] + 4.0 * g * g * d.v2sigma2[i];
+    return;
+  }
+  // sigma_a(g) for a = (uu, ud, dd); J(a, s) = d sigma_a / d g_s.
+  const double gu = grad[2 * i], gd = grad[2 * i + 1];
+  const double J[3][2] = {{2.0 * gu, 0.0}, {gd, gu}, {0.0, 2.0 * gd}};
+  const double* vs = &d.vsigma[3 * i];
+  const double* rs = &d.v2rhosigma[6 * i];  // (s, a) rho-index-major
+  const double* s2 = &d.v2sigma2[6 * i];    // upper triangle of (a, b)
+  const double S[3][3] = {{s2[0], s2[1], s2[2]}, {s2[1], s2[3], s2[4]}, {s2[2], s2[4], s2[5]}};
+  for (int s = 0; s < 2; ++s)
+    for (int t = 0; t < 2; ++t) {
+      double v = 0.0;
+      for (int a = 0; a < 3; ++a) v += rs[3 * s + a] * J[a][t];
+      ng[2 * s + t] = v;  // d^2 e / dn_s dg_t
+      double w = 0.0;
+      for (int a = 0; a < 3; ++a)
+        for (int b = 0; b < 3; ++b) w += J[a][s] * S[a][b] * J[b][t];
+      gg[2 * s + t] = w;
+    }
+  // Second derivatives of sigma itself: d2 s_uu/dgu2 = 2, d2 s_ud/dgu dgd = 1, d2 s_dd/dgd2 = 2.
+  gg[0] += 2.0 * vs[0];
+  gg[1] += vs[1];
+  gg[2] += vs[1];
+  gg[3] += 2.0 * vs[2];
+}
+
 }  // namespace
 
 XcOnMesh evaluate_xc(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& n,
@@ -158,38 +194,7 @@ XcKernel::XcKernel(const Mesh& mesh, const XcFunctional& xc, const std::vector<E
       nn[1] = nn[2] = d.v2rho2[3 * i + 1];
       nn[3] = d.v2rho2[3 * i + 2];
     }
-    if (!gradient_) continue;
-    double* ng = &eng_[i * ns * ns];
-    double* gg = &egg_[i * ns * ns];
-    if (ns == 1) {
-      // sigma = g^2: e_g = 2 g e_s, e_gg = 2 e_s + 4 g^2 e_ss, e_ng = 2 g e_ns.
-      const double g = grad[i];
-      ng[0] = 2.0 * g * d.v2rhosigma[i];
-      gg[0] = 2.0 * d.vsigma[i] + 4.0 * g * g * d.v2sigma2[i];
-    } else {
-      // sigma_a(g) for a = (uu, ud, dd); J(a, s) = d sigma_a / d g_s.
-      const double gu = grad[2 * i], gd = grad[2 * i + 1];
-      const double J[3][2] = {{2.0 * gu, 0.0}, {gd, gu}, {0.0, 2.0 * gd}};
-      const double* vs = &d.vsigma[3 * i];
-      const double* rs = &d.v2rhosigma[6 * i];  // (s, a) rho-index-major
-      const double* s2 = &d.v2sigma2[6 * i];    // upper triangle of (a, b)
-      const double S[3][3] = {{s2[0], s2[1], s2[2]}, {s2[1], s2[3], s2[4]}, {s2[2], s2[4], s2[5]}};
-      for (int s = 0; s < 2; ++s)
-        for (int t = 0; t < 2; ++t) {
-          double v = 0.0;
-          for (int a = 0; a < 3; ++a) v += rs[3 * s + a] * J[a][t];
-          ng[2 * s + t] = v;  // d^2 e / dn_s dg_t
-          double w = 0.0;
-          for (int a = 0; a < 3; ++a)
-            for (int b = 0; b < 3; ++b) w += J[a][s] * S[a][b] * J[b][t];
-          gg[2 * s + t] = w;
-        }
-      // Second derivatives of sigma itself: d2 s_uu/dgu2 = 2, d2 s_ud/dgu dgd = 1, d2 s_dd/dgd2 = 2.
-      gg[0] += 2.0 * vs[0];
-      gg[1] += vs[1];
-      gg[2] += vs[1];
-      gg[3] += 2.0 * vs[2];
-    }
+    if (gradient_) gradient_blocks(d, grad, i, ns, &eng_[i * ns * ns], &egg_[i * ns * ns]);
   }
 }
 
@@ -251,6 +256,54 @@ XcParameterDerivative xc_parameter_derivative(const Mesh& mesh, const XcFunction
   if (!t.needs_gradient()) dvsigma.assign(pts.np * (ns == 1 ? 1 : 3), 0.0);
   out.potential = assemble_potential(mesh, map, grad, ns, gradient, dvrho, dvsigma);
   for (auto& v : out.potential) v *= w;
+  return out;
+}
+
+}  // namespace stillpoint
+
+namespace stillpoint {
+
+RippleStability ripple_stability(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& n,
+                                 double thr) {
+  RippleStability out;
+  if (xc.empty() || !xc.needs_gradient()) return out;
+  const int ns = static_cast<int>(n.size());
+  XcPointData pts;
+  std::vector<double> grad;
+  const PointMap map = gather(mesh, n, true, thr, pts, grad);
+  XcDerivatives d;
+  xc.evaluate(pts, 2, d);
+  double ng[4], gg[4];
+  double lo = std::numeric_limits<double>::infinity(), hi = -lo;
+  for (std::size_t i = 0; i < pts.np; ++i) {
+    gradient_blocks(d, grad, i, ns, ng, gg);
+    // Scaled by the von Weizsaecker stiffness 1/(4 n_s) of each spin: M = S e_gg S with
+    // S = diag(sqrt(4 n_s)); the sum 1 + M must stay positive definite.
+    double lambda;
+    if (ns == 1) {
+      lambda = 4.0 * pts.rho[i] * gg[0];
+    } else {
+      const double su = std::sqrt(4.0 * pts.rho[2 * i]), sd = std::sqrt(4.0 * pts.rho[2 * i + 1]);
+      const double a = su * su * gg[0], b = su * sd * gg[1], c = sd * sd * gg[3];
+      lambda = 0.5 * (a + c) - std::sqrt(0.25 * (a - c) * (a - c) + b * b);
+    }
+    if (!std::isfinite(lambda)) continue;  // the SCF's own non-finite checks name such points
+    const double x = mesh.x()(map.node[i]);
+    if (lambda < -1.0) {
+      lo = std::min(lo, x);
+      hi = std::max(hi, x);
+      ++out.unstable_points;
+    }
+    if (lambda < out.worst) {
+      out.worst = lambda;
+      out.x = x;
+      double tot = 0.0, g = 0.0;
+      for (int s = 0; s < ns; ++s) tot += pts.rho[ns * i + s], g += grad[ns * i + s];
+      out.density = tot;
+      out.gradient = std::abs(g);
+    }
+  }
+  if (out.unstable_points > 0) out.from = lo, out.to = hi;
   return out;
 }
 

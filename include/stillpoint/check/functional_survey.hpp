@@ -8,6 +8,7 @@
 
 #include "stillpoint/ks/system.hpp"
 #include "stillpoint/xc/functional.hpp"
+#include "stillpoint/xc/on_mesh.hpp"
 
 namespace stillpoint {
 
@@ -32,8 +33,13 @@ struct SurveyOutcome {
   /// Refused for this system before the SCF (for example an open shell with a functional whose
   /// minority-spin potential diverges); `error` then holds the reason.
   bool refused = false;
+  /// The SCF failed and its best iterate breaks the ripple-stability bound
+  /// (UnstableFunctionalError): this functional has no stable self-consistent solution for this
+  /// system, whatever the settings. `stability` says where; `error` holds the full diagnosis.
+  bool unstable = false;
+  RippleStability stability;
   std::string error;    ///< why it failed or was refused (empty when converged)
-  bool acceptable() const { return converged || refused; }
+  bool acceptable() const { return converged || refused || unstable; }
 };
 
 struct SurveyRow {
@@ -45,7 +51,9 @@ struct SurveyRow {
   double tail_on = 0.0;   ///< XcTerm::tail_on: the switch is complete above this density
   std::string refusal;  ///< why it is refused for every system of the set (empty: it was solved)
   std::vector<SurveyOutcome> outcomes;
+  /// Every outcome is acceptable (converged, refused for its system, or unstable there).
   bool all_converged() const;
+  bool any_unstable() const;
 };
 
 struct SurveyOptions {

@@ -4,7 +4,9 @@
 #include <string>
 #include <vector>
 
+#include "stillpoint/common/errors.hpp"
 #include "stillpoint/ks/problem.hpp"
+#include "stillpoint/xc/on_mesh.hpp"
 
 namespace stillpoint {
 
@@ -100,5 +102,20 @@ struct MapEvaluation {
 };
 MapEvaluation evaluate_ks_map(const KsProblem& problem, const std::vector<Eigen::VectorXd>& v_in,
                               std::vector<EigenWarmStart>& warm);
+
+/// An SCF that failed although no setting was at fault: its best iterate violates the ripple
+/// stability bound (ripple_stability in xc/on_mesh.hpp), so this functional has no stable
+/// self-consistent solution for this system and no mixing, iteration limit or grid changes
+/// that. It is still a NumericalError (exit code 3); the message says to choose another
+/// functional, and details() holds the residual history.
+class UnstableFunctionalError : public NumericalError {
+ public:
+  UnstableFunctionalError(const std::string& what, std::vector<std::string> details, const RippleStability& where)
+      : NumericalError(what, std::move(details)), where_(where) {}
+  const RippleStability& stability() const noexcept { return where_; }
+
+ private:
+  RippleStability where_;
+};
 
 }  // namespace stillpoint

@@ -66,3 +66,27 @@ XcParameterDerivative xc_parameter_derivative(const Mesh& mesh, const XcFunction
                                               const std::vector<Eigen::VectorXd>& density, double density_threshold);
 
 }  // namespace stillpoint
+
+namespace stillpoint {
+
+/// Stability of the Kohn–Sham energy against short-wavelength density ripples. For a ripple of
+/// wavenumber q along the gradient, the exchange-correlation energy changes at order q^2 by
+/// (1/2) e_gg q^2 dn^2 (e_gg = d^2 e / d(n')^2 = 2 e_sigma + 4 sigma e_sigma_sigma), while the
+/// non-interacting kinetic energy rises by at most the von Weizsaecker amount (1/2) q^2 dn^2 /
+/// (4 n) (the large-q limit of the Lindhard response; Hartree is O(q^-2)). Where
+/// 4 n e_gg < -1 (spin resolved: the smallest eigenvalue of 4 sqrt(n_s n_t) e_{g_s g_t}) ripples
+/// lower the energy without bound as q grows, so the continuum problem has no minimum and a
+/// discrete SCF chases ripples at the scale of the mesh.
+struct RippleStability {
+  double worst = 0.0;      ///< smallest value over the quadrature points (dimensionless; < -1 is unstable)
+  double x = 0.0;          ///< where it occurs (bohr)
+  double density = 0.0;    ///< total density there (bohr^-3, bohr^-1 on a line)
+  double gradient = 0.0;   ///< |n'| there
+  int unstable_points = 0; ///< quadrature points below -1
+  double from = 0.0, to = 0.0;  ///< the range of x (bohr) of those points
+};
+/// Zero-initialised (`worst` = 0) for LDA-only functionals, which have no gradient term.
+RippleStability ripple_stability(const Mesh& mesh, const XcFunctional& xc, const std::vector<Eigen::VectorXd>& density,
+                                 double density_threshold);
+
+}  // namespace stillpoint
