@@ -32,6 +32,7 @@ a result of the wrong shape is a ValueError naming the term; a non-finite value 
 :class:`stillpoint.NumericalError` naming the term and the grid point. Nothing is replaced.
 """
 import math
+import threading
 
 import numpy as np
 
@@ -163,6 +164,10 @@ class _TorchEvaluator:
         self.per_volume = per_volume
         self.call = _functional_call()
         self.shapes = [(k, tuple(p.shape)) for k, p in module.named_parameters()]
+        # functional_call swaps the module's parameters in and out for the duration of a call,
+        # and torch releases the GIL inside its operations: two library threads (grad with
+        # threads > 1) would see each other's swaps and get wrong Jacobians. One call at a time.
+        self._lock = threading.Lock()
 
     def names(self):
         out = []
@@ -251,7 +256,7 @@ class _TorchEvaluator:
 
     def __call__(self, rho_np, sigma_np, theta_np, order, want, one_d):
         torch = self.torch
-        with torch.enable_grad():
+        with self._lock, torch.enable_grad():
             rho = torch.from_numpy(rho_np).requires_grad_(True)
             sigma = None if sigma_np is None else torch.from_numpy(sigma_np).requires_grad_(True)
             theta = torch.from_numpy(theta_np).requires_grad_(want)

@@ -118,7 +118,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
 // Returns normally when the bound holds (or the map cannot be evaluated there).
 void throw_if_unstable(const KsProblem& P, const std::vector<Eigen::VectorXd>& best_v,
                        std::vector<EigenWarmStart> warm, const std::string& failure,
-                       const std::vector<std::string>& lines) {
+                       const std::vector<std::string>& lines, bool verbose) {
   if (!P.xc().needs_gradient()) return;
   RippleStability r;
   try {
@@ -127,6 +127,9 @@ void throw_if_unstable(const KsProblem& P, const std::vector<Eigen::VectorXd>& b
   } catch (const std::exception&) {
     return;
   }
+  if (verbose)
+    std::fprintf(stderr, "  ripple bound on the best iterate: 4 n d2e/dn'2 >= %.3g (unstable below -1) at r = %.3g bohr\n",
+                 r.worst, r.x);
   if (r.worst >= -1.0) return;
   const bool line = P.mesh().geometry() == Geometry::Line;
   const char* x = line ? "x" : "r";
@@ -168,6 +171,8 @@ KsSolution solve_scf(const KsProblem& P, const ScfOptions& opt, const KsSolution
       const KsSolution base = solve_scf_from(Q, opt, nullptr);
       if (opt.verbose) std::fprintf(stderr, "  SCF diverged; starting again from the converged LDA solution\n");
       return solve_scf_from(P, opt, &base);
+    } catch (const UnstableFunctionalError&) {
+      throw;  // the verdict that explains both failures
     } catch (const std::exception&) {
       std::rethrow_exception(first);  // the first attempt's message and history
     }
@@ -229,7 +234,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
       msg << "SCF diverged with functional " << xc_list_form(P.xc()) << ": " << what << " at iteration " << it
           << " (first after the best iterate, iteration " << best_iteration << ")";
       if (restarts > 1) msg << ", and " << restarts - 1 << " damped restarts did not help";
-      throw_if_unstable(P, best_v, best_warm, msg.str(), history_lines());
+      throw_if_unstable(P, best_v, best_warm, msg.str(), history_lines(), opt.verbose);
       msg << "; try a smaller mixing or another grid";
       throw ScfDiverged(msg.str(), history_lines());
     }
@@ -433,7 +438,7 @@ KsSolution solve_scf_from(const KsProblem& P, const ScfOptions& opt, const KsSol
   else
     msg << "eigenvalue change " << last.eigenvalue_change << " Ha > " << opt.eigenvalue_tolerance;
   msg << ")";
-  throw_if_unstable(P, best_v, best_warm, msg.str(), lines);
+  throw_if_unstable(P, best_v, best_warm, msg.str(), lines, opt.verbose);
   msg << "; try more iterations, a smaller mixing, looser tolerances or a different grid";
   throw NumericalError(msg.str(), lines);
 }

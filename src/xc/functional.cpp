@@ -290,6 +290,11 @@ class LibxcTerm final : public XcTerm {
         for (std::size_t q = j - 1; jagged && q <= j + 1; ++q)
           jagged = d2[q] * d2[q + 1] < 0.0 && std::abs(d2[q]) > 0.2 * std::abs(v[q]) + 1e-9;
         bool finite = std::isfinite(v[j]) && std::isfinite(b.zk[j]) && std::isfinite(b.v2rho2[(polarized ? 3 : 1) * j]);
+        // Fully polarized: the absent spin's potential is libxc's limit where that stays below
+        // kAbsentSpinLimit (see polarized()); a limit that large where the tail is thin digs a
+        // well that traps ghost minority states (OP with G96 exchange: -260 hartree at n = 4e-14).
+        const double v_absent = polarized && kind_ == XC_CORRELATION ? b.vrho[2 * j + 1] : 0.0;
+        const bool deep_absent = std::abs(v_absent) > kTailPotential && std::abs(v_absent) <= kAbsentSpinLimit;
         if (gga())
           finite = finite && std::isfinite(b.v2sigma2[(polarized ? 6 : 1) * j]) &&
                    std::isfinite(b.v2rhosigma[(polarized ? 6 : 1) * j]);
@@ -305,7 +310,7 @@ class LibxcTerm final : public XcTerm {
         }
         if (ripples_only ? ripples
                          : !finite || !(std::abs(v[j]) <= kTailPotential) || !(std::abs(b.zk[j]) <= 10.0 * kTailPotential) ||
-                               !(rough <= kTailNoise + 0.05 * std::abs(v[j])) || jagged || ripples) {
+                               !(rough <= kTailNoise + 0.05 * std::abs(v[j])) || jagged || ripples || deep_absent) {
           bad = std::max(bad, dens[j]);
           return;
         }
@@ -574,32 +579,22 @@ class LibxcTerm final : public XcTerm {
     }
   }
 
-  void polarized(const XcPointData& in, double w, int order, XcDerivatives& out) const {
-    const std::size_t np = in.np;
-    std::vector<double> rho(in.rho), sigma(in.sigma);
-    std::vector<char> zero_spin(2 * np, 0);
-    // A vanishing spin density is passed as exactly zero: libxc's clamping of tiny spin
-    // densities produces spurious correlation potentials otherwise.
-    for (std::size_t i = 0; i < np; ++i) {
-      const double tot = rho[2 * i] + rho[2 * i + 1];
-      for (int s = 0; s < 2; ++s)
-        if (rho[2 * i + s] < std::max(1e-14 * tot, minority_floor_)) {
-          rho[2 * i + s] = 0.0;
-          zero_spin[2 * i + s] = 1;
-          if (gga()) {
-            sigma[3 * i + 2 * s] = 0.0;
-            sigma[3 * i + 1] = 0.0;
-          }
-        }
-    }
+  // libxc on (rho, sigma) with the spins flagged in `absent` (bit 0 up, bit 1 down) at zero,
+  // per point of `pts` (indices into `in`, for messages), written unweighted into d.
+  void polarized_terms(const XcPointData& in, const std::vector<std::size_t>& pts, const std::vector<double>& rho,
+                       const std::vector<double>& sigma, const std::vector<int>& absent_of, int order,
+                       XcDerivatives& d) const {
+    const std::size_t np = pts.size();
+    d.reset(2, np, gga(), order);
     Buffers b(np, 2, order);
     eval(pol_.f, np, rho.data(), gga() ? sigma.data() : nullptr, order, b);
     // Spins each sigma component involves: uu -> up, ud -> both, dd -> down.
     static constexpr int kSigmaSpins[3] = {1, 3, 2};
     static constexpr int kPair[6][2] = {{0, 0}, {0, 1}, {0, 2}, {1, 1}, {1, 2}, {2, 2}};
-    for (std::size_t i = 0; i < np; ++i) {
-      const double tot = rho[2 * i] + rho[2 * i + 1];
-      const int absent = (zero_spin[2 * i] ? 1 : 0) | (zero_spin[2 * i + 1] ? 2 : 0);
+    for (std::size_t j = 0; j < np; ++j) {
+      const std::size_t i = pts[j];
+      const double tot = rho[2 * j] + rho[2 * j + 1];
+      const int absent = absent_of[j];
       // A derivative with respect to an absent spin is libxc's fully polarized limit where it
       // has one (what an empty minority level feels in the tail). Where it has none (B97-type
       // same-spin terms give NaN at n_s = 0) it is 0: the exact derivative of the discrete rule,
@@ -608,26 +603,144 @@ class LibxcTerm final : public XcTerm {
       auto limit = [&](double v, int spins) {
         return (spins & absent) && !(std::abs(v) <= kAbsentSpinLimit) ? 0.0 : finite(v, in, i);
       };
-      out.e[i] += w * finite(b.zk[i] * tot, in, i);
-      for (int s = 0; s < 2; ++s) out.vrho[2 * i + s] += w * limit(b.vrho[2 * i + s], 1 << s);
+      d.e[j] = finite(b.zk[j] * tot, in, i);
+      for (int sp = 0; sp < 2; ++sp) d.vrho[2 * j + sp] = limit(b.vrho[2 * j + sp], 1 << sp);
       if (gga())
-        for (int k = 0; k < 3; ++k) out.vsigma[3 * i + k] += w * limit(b.vsigma[3 * i + k], kSigmaSpins[k]);
-      if (order >= 2) {
-        for (int k = 0; k < 3; ++k) {
-          // Second derivatives in an absent spin can be ~1e9; they multiply a response that is
-          // identically zero, so mask them.
-          const int spins = k == 0 ? 1 : k == 1 ? 3 : 2;
-          out.v2rho2[3 * i + k] += w * ((spins & absent) ? 0.0 : finite(b.v2rho2[3 * i + k], in, i));
-        }
+        for (int k = 0; k < 3; ++k) d.vsigma[3 * j + k] = limit(b.vsigma[3 * j + k], kSigmaSpins[k]);
+      // The energy carries the absent spin's part to first order, limit times its actual density
+      // (or gradient invariant): then the limit is the exact derivative of the energy (to the
+      // limit's own variation with the other spin, a term of order n_absent), and the blend in
+      // polarized() differentiates cleanly. It adds below 1e-14 of the local energy density.
+      if (absent) {
+        for (int sp = 0; sp < 2; ++sp)
+          if (absent & (1 << sp)) d.e[j] += d.vrho[2 * j + sp] * in.rho[2 * i + sp];
         if (gga())
-          for (int k = 0; k < 6; ++k) {
-            const int rs = (1 << (k / 3)) | kSigmaSpins[k % 3];
-            const int ss = kSigmaSpins[kPair[k][0]] | kSigmaSpins[kPair[k][1]];
-            // Second derivatives in an absent spin: 0, the derivative of the discrete rule.
-            out.v2rhosigma[6 * i + k] += w * ((rs & absent) ? 0.0 : finite(b.v2rhosigma[6 * i + k], in, i));
-            out.v2sigma2[6 * i + k] += w * ((ss & absent) ? 0.0 : finite(b.v2sigma2[6 * i + k], in, i));
-          }
+          for (int k = 0; k < 3; ++k)
+            if (absent & kSigmaSpins[k]) d.e[j] += d.vsigma[3 * j + k] * in.sigma[3 * i + k];
       }
+      if (order < 2) continue;
+      for (int k = 0; k < 3; ++k) {
+        // Second derivatives in an absent spin can be ~1e9; they multiply a response that is
+        // identically zero, so mask them.
+        const int spins = k == 0 ? 1 : k == 1 ? 3 : 2;
+        d.v2rho2[3 * j + k] = (spins & absent) ? 0.0 : finite(b.v2rho2[3 * j + k], in, i);
+      }
+      if (gga())
+        for (int k = 0; k < 6; ++k) {
+          const int rs = (1 << (k / 3)) | kSigmaSpins[k % 3];
+          const int ss = kSigmaSpins[kPair[k][0]] | kSigmaSpins[kPair[k][1]];
+          // Second derivatives in an absent spin: 0, the derivative of the discrete rule.
+          d.v2rhosigma[6 * j + k] = (rs & absent) ? 0.0 : finite(b.v2rhosigma[6 * j + k], in, i);
+          d.v2sigma2[6 * j + k] = (ss & absent) ? 0.0 : finite(b.v2sigma2[6 * j + k], in, i);
+        }
+    }
+  }
+
+  void polarized(const XcPointData& in, double w, int order, XcDerivatives& out) const {
+    const std::size_t np = in.np;
+    std::vector<double> rho(in.rho), sigma(in.sigma);
+    std::vector<int> absent(np, 0);
+    // A vanishing spin density is passed as exactly zero: libxc's clamping of tiny spin
+    // densities produces spurious correlation potentials otherwise. Between the floor L and
+    // kAbsentBlend decades above it the two evaluations are blended, e = e0 + S (e1 - e0) and
+    // likewise every derivative, with the quintic step S in log(n_s / L). A hard floor made the
+    // minority potential jump there, by hundreds of hartree for PBE-type forms whose minority
+    // potential grows like a power of 1/(1 - zeta) (zPBEint, zPBEsol, SG4 on Li): the SCF then
+    // hopped across the floor and stalled at 1e-6 hartree. The potential leaves out the term
+    // (dS/dn) (e1 - e0) of the exact derivative: e1 - e0 is about 1e-14 of e, so divided by n_s
+    // it is rounding noise of 1e-3 hartree that kept Li's unoccupied 2s down level from settling.
+    // Its weight is a spin density below 1e-12 of the local one; the kernel blends likewise
+    // (symmetrized, as a Hessian).
+    constexpr double kAbsentBlend = 2.0;  // decades
+    struct Blend {
+      std::size_t point;
+      double S, Sa[2];  // S and dS/dn_a
+    };
+    std::vector<Blend> blends;
+    std::vector<double> full_rho, full_sigma;
+    for (std::size_t i = 0; i < np; ++i) {
+      const double tot = rho[2 * i] + rho[2 * i + 1];
+      const bool relative = 1e-14 * tot >= minority_floor_;
+      const double L = std::max(1e-14 * tot, minority_floor_);
+      // 0: present, 1: blended, 2: absent. Only a spin beside a present one is blended; where
+      // both are near the floor (far tails of closed shells) the hard rule stays.
+      int state[2];
+      for (int s = 0; s < 2; ++s) {
+        const double ns = rho[2 * i + s];
+        state[s] = ns >= L * std::pow(10.0, kAbsentBlend) ? 0 : ns >= L && ns > 0.0 ? 1 : 2;
+      }
+      if (state[0] != 0 && state[1] != 0)
+        for (int s = 0; s < 2; ++s) state[s] = rho[2 * i + s] >= L && rho[2 * i + s] > 0.0 ? 0 : 2;
+      for (int s = 0; s < 2; ++s) {
+        if (state[s] == 0) continue;
+        const double ns = rho[2 * i + s];
+        if (state[s] == 1) {
+          const double c = 1.0 / (kAbsentBlend * std::log(10.0));
+          const double y = c * std::log(ns / L);
+          double ya[2];
+          for (int a = 0; a < 2; ++a) ya[a] = c * ((a == s ? 1.0 / ns : 0.0) - (relative ? 1.0 / tot : 0.0));
+          const double S = y * y * y * (10.0 + y * (-15.0 + 6.0 * y));
+          const double S1 = 30.0 * y * y * (1.0 - y) * (1.0 - y);
+          const Blend bl{i, S, {S1 * ya[0], S1 * ya[1]}};
+          blends.push_back(bl);
+          full_rho.insert(full_rho.end(), {rho[2 * i], rho[2 * i + 1]});
+          if (gga()) full_sigma.insert(full_sigma.end(), {sigma[3 * i], sigma[3 * i + 1], sigma[3 * i + 2]});
+        }
+        rho[2 * i + s] = 0.0;
+        absent[i] |= 1 << s;
+        if (gga()) {
+          sigma[3 * i + 2 * s] = 0.0;
+          sigma[3 * i + 1] = 0.0;
+        }
+      }
+    }
+    std::vector<std::size_t> all(np);
+    for (std::size_t i = 0; i < np; ++i) all[i] = i;
+    XcDerivatives d0;
+    polarized_terms(in, all, rho, sigma, absent, order, d0);
+    if (!blends.empty()) {
+      std::vector<std::size_t> sub;
+      for (const Blend& bl : blends) sub.push_back(bl.point);
+      XcDerivatives d1;
+      polarized_terms(in, sub, full_rho, full_sigma, std::vector<int>(sub.size(), 0), order, d1);
+      for (std::size_t j = 0; j < blends.size(); ++j) {
+        const Blend& bl = blends[j];
+        const std::size_t i = bl.point;
+        const double S = bl.S, de = d1.e[j] - d0.e[i];
+        double dv[2];
+        for (int a = 0; a < 2; ++a) dv[a] = d1.vrho[2 * j + a] - d0.vrho[2 * i + a];
+        d0.e[i] += S * de;
+        if (order >= 2) {
+          for (int k = 0; k < 3; ++k) {
+            const int a = k == 2 ? 1 : 0, b = k == 0 ? 0 : 1;
+            d0.v2rho2[3 * i + k] += S * (d1.v2rho2[3 * j + k] - d0.v2rho2[3 * i + k]) +
+                                    0.5 * (bl.Sa[a] * dv[b] + bl.Sa[b] * dv[a]);
+          }
+          if (gga())
+            for (int k = 0; k < 6; ++k) {
+              const int a = k / 3, m = k % 3;
+              d0.v2rhosigma[6 * i + k] += S * (d1.v2rhosigma[6 * j + k] - d0.v2rhosigma[6 * i + k]) +
+                                          0.5 * bl.Sa[a] * (d1.vsigma[3 * j + m] - d0.vsigma[3 * i + m]);
+              d0.v2sigma2[6 * i + k] += S * (d1.v2sigma2[6 * j + k] - d0.v2sigma2[6 * i + k]);
+            }
+        }
+        for (int a = 0; a < 2; ++a) d0.vrho[2 * i + a] += S * dv[a];
+        if (gga())
+          for (int k = 0; k < 3; ++k) d0.vsigma[3 * i + k] += S * (d1.vsigma[3 * j + k] - d0.vsigma[3 * i + k]);
+      }
+    }
+    for (std::size_t i = 0; i < np; ++i) {
+      out.e[i] += w * d0.e[i];
+      for (int a = 0; a < 2; ++a) out.vrho[2 * i + a] += w * d0.vrho[2 * i + a];
+      if (gga())
+        for (int k = 0; k < 3; ++k) out.vsigma[3 * i + k] += w * d0.vsigma[3 * i + k];
+      if (order < 2) continue;
+      for (int k = 0; k < 3; ++k) out.v2rho2[3 * i + k] += w * d0.v2rho2[3 * i + k];
+      if (gga())
+        for (int k = 0; k < 6; ++k) {
+          out.v2rhosigma[6 * i + k] += w * d0.v2rhosigma[6 * i + k];
+          out.v2sigma2[6 * i + k] += w * d0.v2sigma2[6 * i + k];
+        }
     }
   }
 
