@@ -396,6 +396,11 @@ TEST(Functionals, RippleUnstableFunctionalIsNamedAsSuch) {
   EXPECT_TRUE(row.outcomes[0].unstable);
   EXPECT_TRUE(row.outcomes[0].acceptable());
   EXPECT_NE(sp::survey_markdown({row}, "atoms").find("*unstable* on Li"), std::string::npos);
+  // Energies only for the systems asked for; the instability is listed whatever is asked.
+  const sp::SurveyRow pbe_row = sp::survey_functional(entry("gga_c_pbe"), {{"Li", atom(3, {}, false)}});
+  EXPECT_NE(sp::survey_markdown({pbe_row}, "atoms").find("Li -7."), std::string::npos);
+  EXPECT_EQ(sp::survey_markdown({pbe_row}, "atoms", {"Ne"}).find("Li -7."), std::string::npos);
+  EXPECT_NE(sp::survey_markdown({row}, "atoms", {"Ne"}).find("*unstable* on Li"), std::string::npos);
 }
 
 // Converged with default settings: the residual at the tolerance or at its measured floor.

@@ -47,6 +47,7 @@ struct FunctionalsCommandOptions {
   std::string survey;  ///< empty: list the catalog; else a survey set (functional_survey.hpp)
   std::vector<std::string> only;
   std::string markdown;
+  std::vector<std::string> energies_of;  ///< systems whose energies the Markdown table shows (empty: all)
   int threads = 1;
   bool quiet = false;
 };

@@ -54,6 +54,6 @@ int run_functionals(const FunctionalsCommandOptions& o) {
   std::cout << "survey '" << o.survey << "' (" << systems.size() << " systems): " << solved << " functionals converge (" << shaky << " of them unstable on some systems), "
             << refused << " refused, " << bad << " fail (" << failed << " failed solves; " << unstable
             << " solves unstable)\n";
-  if (!o.markdown.empty()) sp::write_file_atomically(o.markdown, sp::survey_markdown(rows, o.survey));
+  if (!o.markdown.empty()) sp::write_file_atomically(o.markdown, sp::survey_markdown(rows, o.survey, o.energies_of));
   return bad == 0 ? 0 : 3;
 }

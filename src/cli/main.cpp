@@ -282,6 +282,8 @@ int run_cli(int argc, char** argv, std::string& message) {
                           "solve a set of systems with every usable LDA/GGA: ne, docs, quick, atoms, lines, all");
   functionals->add_option("--only", xopt.only, "restrict to these libxc names or numbers");
   functionals->add_option("--markdown", xopt.markdown, "write the survey as a Markdown table (docs/functionals.md)");
+  functionals->add_option("--energies-of", xopt.energies_of,
+                          "systems whose energies the Markdown table shows, e.g. Ne \"line He\" (default: all)");
   functionals->add_option("--threads", xopt.threads, "functionals surveyed in parallel")->check(CLI::Range(1, 256));
   functionals->add_flag("--quiet,-q", xopt.quiet, "no progress lines");
 

@@ -72,7 +72,10 @@ SurveyRow survey_functional(const LibxcEntry& entry, const std::vector<SurveySys
 std::vector<SurveyRow> survey_libxc(const std::vector<SurveySystem>& systems, const std::vector<std::string>& only,
                                     const SurveyOptions& options = {});
 
-/// The Markdown page docs/functionals.md: one row per functional with its status.
-std::string survey_markdown(const std::vector<SurveyRow>& rows, const std::string& set);
+/// The Markdown page docs/functionals.md: one row per functional with its status. Energies are
+/// printed for the systems labelled in `energies_of` (empty: every system); failures, unstable
+/// and refused outcomes are listed for every system surveyed.
+std::string survey_markdown(const std::vector<SurveyRow>& rows, const std::string& set,
+                            const std::vector<std::string>& energies_of = {});
 
 }  // namespace stillpoint
