@@ -510,3 +510,18 @@ TEST(CliProgress, QuietSilencesProgressOnlyForEverySubcommand) {
     EXPECT_EQ(std::regex_replace(loud.out, seconds, "T s"), std::regex_replace(quiet.out, seconds, "T s")) << args;
   }
 }
+
+// A system label that the survey does not have is an input error that names it and the
+// nearest label, before any functional is solved, and no table is written.
+TEST(CliFunctionals, UnknownEnergiesOfLabelIsAnInputError) {
+  clitest::Scratch s;
+  const clitest::CliRun r = s.cli("functionals --survey docs --only lda_x --energies-of NE --markdown t.md");
+  EXPECT_EQ(r.rc, 2) << r.err;
+  EXPECT_TRUE(contains(r.err, "no system 'NE'")) << r.err;
+  EXPECT_TRUE(contains(r.err, "did you mean 'Ne'")) << r.err;
+  EXPECT_TRUE(s.absent_or_empty("t.md"));
+  const clitest::CliRun ok = s.cli("functionals --survey docs --only lda_x --energies-of Ne --markdown t.md -q");
+  EXPECT_EQ(ok.rc, 0) << ok.err;
+  EXPECT_TRUE(contains(s.read("t.md"), "Ne -127.4907")) << s.read("t.md");
+  EXPECT_FALSE(contains(s.read("t.md"), "line He -")) << s.read("t.md");
+}

@@ -4,6 +4,7 @@
 
 #include "commands.hpp"
 #include "stillpoint/common/atomic_file.hpp"
+#include "stillpoint/common/errors.hpp"
 #include "stillpoint/check/functional_survey.hpp"
 
 namespace sp = stillpoint;
@@ -24,6 +25,15 @@ int run_functionals(const FunctionalsCommandOptions& o) {
     return 0;
   }
   const auto systems = sp::survey_systems(o.survey);
+  for (const std::string& want : o.energies_of)
+    if (std::none_of(systems.begin(), systems.end(), [&](const auto& s) { return s.label == want; })) {
+      std::vector<std::string> labels;
+      for (const auto& s : systems) labels.push_back(s.label);
+      std::string near = sp::nearest_word(want, labels), all;
+      for (const auto& l : labels) all += (all.empty() ? "" : ", ") + l;
+      throw sp::InputError("--energies-of: survey '" + o.survey + "' has no system '" + want + "'" +
+                           (near.empty() ? "" : " (did you mean '" + near + "'?)") + "; its systems: " + all);
+    }
   sp::SurveyOptions opt;
   opt.threads = o.threads;
   int failed = 0, unstable = 0;
