@@ -8,7 +8,6 @@
 
 #include "stillpoint/common/errors.hpp"
 #include "stillpoint/numerics/band_lu.hpp"
-#include "stillpoint/numerics/kinetic.hpp"
 #include "stillpoint/xc/model_functional.hpp"
 #include "stillpoint/xc/on_mesh.hpp"
 
@@ -59,10 +58,8 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
   const Eigen::VectorXd sqrt_w = m.w().segment(1, I.nu).array().sqrt();
   I.sos = opt.chi0 == ResponseOptions::Chi0Method::SumOverStates ||
           (opt.chi0 == ResponseOptions::Chi0Method::Automatic && I.nu <= opt.sum_over_states_below);
-  std::vector<SpMat> T;
   for (std::size_t c = 0; c < P.channels().size(); ++c) {
     const Channel& chan = P.channels()[c];
-    while (static_cast<int>(T.size()) <= chan.l) T.push_back(scaled_kinetic(m, static_cast<int>(T.size())));
     ChannelData d;
     d.spin = chan.spin;
     d.eps = S.states[c].energies;
@@ -81,7 +78,7 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
               << d.occ[i] << " and " << d.occ[j];
           throw NumericalError(msg.str());
         }
-    d.H = T[chan.l];
+    d.H = P.kinetic(chan.l);
     for (int i = 0; i < I.nu; ++i) d.H.coeffRef(i, i) += S.v_s[chan.spin](i + 1);
     if (I.sos) {
       const Eigenpairs all = dense_lowest_eigenpairs(Eigen::MatrixXd(d.H), I.nu);
@@ -341,7 +338,8 @@ Eigen::VectorXd Response::Impl::gmres(const Eigen::VectorXd& b, bool adjoint, co
   int total = 0;
   double previous_true = std::numeric_limits<double>::infinity();
   for (int restart = 0; total < opt.krylov_max_iterations; ++restart) {
-    Eigen::VectorXd r = b - A(x);
+    // x = 0 on the first pass: r = b without a chi0 product at full tolerance.
+    Eigen::VectorXd r = restart == 0 ? b : Eigen::VectorXd(b - A(x));
     const double beta = std::sqrt(R.dot(r, r));
     const double true_res = beta / bnorm;
     last_residual = true_res;
