@@ -211,7 +211,10 @@ KsProblem::KsProblem(const SystemSpec& spec) : spec_(spec) {
   int lmax = 0;
   for (const auto& c : channels_) lmax = std::max(lmax, c.l);
   const Mesh& m = *mesh_;
-  for (int l = 0; l <= lmax; ++l) solvers_.emplace_back(scaled_kinetic(m, l));
+  for (int l = 0; l <= lmax; ++l) {
+    kinetic_.push_back(scaled_kinetic(m, l));
+    solvers_.emplace_back(kinetic_.back());
+  }
   for (const auto& c : channels_)
     if (c.states >= m.num_unknowns())
       throw InputError("the grid has only " + std::to_string(m.num_unknowns()) + " unknowns for " +

@@ -8,7 +8,6 @@
 
 #include "stillpoint/common/errors.hpp"
 #include "stillpoint/numerics/band_lu.hpp"
-#include "stillpoint/numerics/kinetic.hpp"
 #include "stillpoint/xc/model_functional.hpp"
 #include "stillpoint/xc/on_mesh.hpp"
 
@@ -59,10 +58,8 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
   const Eigen::VectorXd sqrt_w = m.w().segment(1, I.nu).array().sqrt();
   I.sos = opt.chi0 == ResponseOptions::Chi0Method::SumOverStates ||
           (opt.chi0 == ResponseOptions::Chi0Method::Automatic && I.nu <= opt.sum_over_states_below);
-  std::vector<SpMat> T;
   for (std::size_t c = 0; c < P.channels().size(); ++c) {
     const Channel& chan = P.channels()[c];
-    while (static_cast<int>(T.size()) <= chan.l) T.push_back(scaled_kinetic(m, static_cast<int>(T.size())));
     ChannelData d;
     d.spin = chan.spin;
     d.eps = S.states[c].energies;
@@ -81,7 +78,7 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
               << d.occ[i] << " and " << d.occ[j];
           throw NumericalError(msg.str());
         }
-    d.H = T[chan.l];
+    d.H = P.kinetic(chan.l);
     for (int i = 0; i < I.nu; ++i) d.H.coeffRef(i, i) += S.v_s[chan.spin](i + 1);
     if (I.sos) {
       const Eigenpairs all = dense_lowest_eigenpairs(Eigen::MatrixXd(d.H), I.nu);
@@ -93,18 +90,29 @@ Response::Response(const KsProblem& P, const KsSolution& S, ResponseOptions opt)
       // Just below eps_i, (H~ - mu)^{-1} on the complement of the computed states has
       // eigenvalues 1/(lambda_j - eps_i + delta): against H~ - eps_i there the preconditioned
       // spectrum lies in [g / (g + delta), 1] (g: the gap to the first state not computed), so
-      // CG needs a handful of steps where the shift below the spectrum needed tens to hundreds.
-      // The shift keeps a quarter of the distance to the state below, so the factor stays well
-      // conditioned on the directions that the projection removes anyway.
+      // PCG gains about a factor delta / (4 g) per step: the smaller the shift, the fewer steps
+      // (7 at delta = g / 20 to reach 1e-13, 2 at delta = 1e-6 |eps_i|). The shift may not come
+      // near the accuracy of the computed pair itself: along the true eigenvector the factor
+      // amplifies by 1 / delta what the projection with the computed c_i leaves, i.e. the
+      // pair's residual rho_i. Kept at 1e4 rho_i, that leak stays below 1e-4 of the solution
+      // on the component the projection removes, where CG only needs the preconditioner
+      // symmetric and positive. A quarter of the distance to the state below keeps the factor
+      // well conditioned on the directions the projection removes anyway.
       int kd = 0;
       for (int j = 0; j < d.H.outerSize(); ++j)
         for (SpMat::InnerIterator it(d.H, j); it; ++it) kd = std::max(kd, std::abs(static_cast<int>(it.row()) - j));
       d.near.resize(k);
+      // The state below leaks the same way with 1 / (its distance to mu): one bound for all.
+      double rho = 0.0;
+      for (int i = 0; i < k; ++i) rho = std::max(rho, (d.H * d.c.col(i) - d.eps(i) * d.c.col(i)).norm());
       for (int i = 0; i < k; ++i) {
         if (d.occ[i] == 0.0) continue;
-        double delta = 0.05 * std::max(std::abs(d.eps(i)), 0.2);
+        const double scale = std::max(std::abs(d.eps(i)), 0.2);
+        double delta = std::min(std::max(1e-6 * scale, 1e4 * rho), 0.05 * scale);
         if (i > 0) delta = std::min(delta, 0.25 * (d.eps(i) - d.eps(i - 1)));
-        if (!(delta > 1e-4 * std::max(std::abs(d.eps(i)), 0.2))) continue;  // near-degenerate: the shift below the spectrum
+        // Near-degenerate with the state below, or a poorly converged pair: the shift below
+        // the spectrum.
+        if (!(delta > 1e3 * rho && delta > 1e-9 * scale)) continue;
         BandLuFactor& f = d.near[i];
         f.reset(I.nu, kd, kd);
         for (int j = 0; j < d.H.outerSize(); ++j)
@@ -330,7 +338,8 @@ Eigen::VectorXd Response::Impl::gmres(const Eigen::VectorXd& b, bool adjoint, co
   int total = 0;
   double previous_true = std::numeric_limits<double>::infinity();
   for (int restart = 0; total < opt.krylov_max_iterations; ++restart) {
-    Eigen::VectorXd r = b - A(x);
+    // x = 0 on the first pass: r = b without a chi0 product at full tolerance.
+    Eigen::VectorXd r = restart == 0 ? b : Eigen::VectorXd(b - A(x));
     const double beta = std::sqrt(R.dot(r, r));
     const double true_res = beta / bnorm;
     last_residual = true_res;

@@ -49,6 +49,9 @@ class KsProblem {
   const XcFunctional& xc() const { return xc_; }
   XcFunctional& mutable_xc() { return xc_; }
   const Hartree* hartree() const { return hartree_.get(); }
+  /// Scaled kinetic matrix of angular momentum l (interior unknowns; l = 0 on the line), the
+  /// one the eigensolver of that l works with.
+  const Eigen::SparseMatrix<double>& kinetic(int l) const { return kinetic_.at(l); }
   double density_threshold() const { return density_threshold_; }
   /// Rebuilds the functional so libxc's own cut-off follows too.
   void set_density_threshold(double t);
@@ -79,7 +82,8 @@ class KsProblem {
   std::shared_ptr<Mesh> mesh_;
   std::vector<Channel> channels_;
   std::vector<int> max_l_;
-  std::vector<LowestEigensolver> solvers_;  // one per l
+  std::vector<Eigen::SparseMatrix<double>> kinetic_;  // one per l
+  std::vector<LowestEigensolver> solvers_;            // one per l
   std::unique_ptr<Hartree> hartree_;
   XcFunctional xc_;
   Eigen::VectorXd v_ext_;
