@@ -23,6 +23,7 @@ void invert_report();  // bench/invert_bench.cpp
 void fit_report();     // bench/fit_bench.cpp
 void atom_report();    // bench/atom_bench.cpp
 void ranks_report();   // bench/ranks_bench.cpp
+void process_report(); // bench/process_bench.cpp
 
 namespace sp = stillpoint;
 
@@ -220,6 +221,48 @@ void gradient_report(int nodes) {
     std::printf("  adjoint, %5d parameters: gradient %.2f ms = %.3f x SCF\n", count, 1e3 * tg / reps, tg / reps / t_scf);
   }
   {
+    // 500 Gaussian wells of zero depth spread over the density, their depths the parameters:
+    // each parameter has its own potential to build, unlike a grid value.
+    sp::SystemSpec w = s;
+    const int count = 500;
+    for (int i = 0; i < count; ++i) {
+      sp::ExternalTerm t = g;
+      t.depth = 0.0;
+      t.center = -8.0 + 16.0 * i / (count - 1);
+      t.width = 0.5;
+      w.line.potentials.push_back(t);
+    }
+    std::vector<sp::ParameterRef> ps;
+    for (int i = 0; i < count; ++i) {
+      sp::ParameterRef r;
+      r.kind = sp::ParameterRef::Kind::Gaussian;
+      r.index = 1 + i;
+      r.field = "depth";
+      r.name = std::string("d").append(std::to_string(i));
+      ps.push_back(r);
+    }
+    const sp::KsProblem Pw(w);
+    int reps = 0;
+    auto t0 = std::chrono::steady_clock::now();
+    while (seconds_since(t0) < 0.5 || reps < 3) {
+      benchmark::DoNotOptimize(sp::solve_scf(Pw).energy.total);
+      ++reps;
+    }
+    const double t_scf_w = seconds_since(t0) / reps;
+    sp::GradientProblem G({w}, ps, {d});
+    const Eigen::VectorXd th = G.initial_values();
+    G.evaluate(th);  // warm
+    double tg = 0.0;
+    reps = 0;
+    t0 = std::chrono::steady_clock::now();
+    while (seconds_since(t0) < 0.5 || reps < 3) {
+      tg += G.evaluate(th).gradient_seconds;
+      ++reps;
+    }
+    std::printf("  adjoint, %5d Gaussian depths: gradient %.2f ms = %.3f x SCF (%.2f ms)\n", count, 1e3 * tg / reps,
+                tg / reps / t_scf_w, 1e3 * t_scf_w);
+  }
+  {
     const int count = std::min(500, N - 2);  // distinct nodes only
     const auto ps = grid_params(count);
     sp::GradientProblem G({s}, ps, {d});
@@ -267,12 +310,12 @@ void gradient_report(int nodes) {
 
 }  // namespace
 
-// --reports=LIST (comma-separated: scaling, eigensolver, gradient, atoms, exact, invert, fit, ranks; default
+// --reports=LIST (comma-separated: scaling, eigensolver, gradient, atoms, exact, invert, fit, ranks, process; default
 // all) picks the ratio reports; Google Benchmark's own flags pick its cases
 // (--benchmark_filter=NONE skips them), so one report can be re-measured in seconds.
 int main(int argc, char** argv) {
   openblas_set_num_threads(1);
-  std::string reports = "scaling,eigensolver,gradient,atoms,exact,invert,fit,ranks";
+  std::string reports = "scaling,eigensolver,gradient,atoms,exact,invert,fit,ranks,process";
   std::vector<char*> rest;
   for (int i = 0; i < argc; ++i) {
     const std::string a = argv[i];
@@ -303,5 +346,6 @@ int main(int argc, char** argv) {
   if (wanted("invert")) invert_report();
   if (wanted("fit")) fit_report();
   if (wanted("ranks")) ranks_report();
+  if (wanted("process")) process_report();
   return 0;
 }
