@@ -651,7 +651,8 @@ class LibxcTerm final : public XcTerm {
     // it is rounding noise of 1e-3 hartree that kept Li's unoccupied 2s down level from settling.
     // Its weight is a spin density below 1e-12 of the local one; the kernel blends likewise
     // (symmetrized, as a Hessian).
-    constexpr double kAbsentBlend = 2.0;  // decades
+    constexpr double kAbsentBlend = 2.0;    // decades
+    constexpr double kAbsentBlendTop = 1e2;  // 10^kAbsentBlend
     struct Blend {
       std::size_t point;
       double S, Sa[2];  // S and dS/dn_a
@@ -667,7 +668,7 @@ class LibxcTerm final : public XcTerm {
       int state[2];
       for (int s = 0; s < 2; ++s) {
         const double ns = rho[2 * i + s];
-        state[s] = ns >= L * std::pow(10.0, kAbsentBlend) ? 0 : ns >= L && ns > 0.0 ? 1 : 2;
+        state[s] = ns >= L * kAbsentBlendTop ? 0 : ns >= L && ns > 0.0 ? 1 : 2;
       }
       if (state[0] != 0 && state[1] != 0)
         for (int s = 0; s < 2; ++s) state[s] = rho[2 * i + s] >= L && rho[2 * i + s] > 0.0 ? 0 : 2;
